@@ -58,7 +58,9 @@ _LAZY: dict[str, str] = {
     "permutation_test": "resampling",
     "fdr_mask": "resampling",
     # main job
-    "compare": "compare",
+    "compare": "comparison",
+    "Comparison": "comparison",
+    "load_config": "config",
     "synthetic": "",
     "figures": "",
 }

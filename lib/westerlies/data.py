@@ -261,8 +261,8 @@ def _is_role(var: xr.DataArray, name: str, role: str) -> bool:
         return (
             lowered in _COORD_NAMES["plev"]
             or attrs.get("standard_name") == "air_pressure"
-            or (attrs.get("positive") == "down" and unit_ok)
-            or (attrs.get("axis") == "Z" and unit_ok)
+            # a 1-D coordinate in pressure units is a pressure axis whatever its name
+            or (unit_ok and var.ndim == 1 and var.dims == (name,))
         )
     unit_key = str(attrs.get("units", "")).lower().replace(" ", "")
     return (
@@ -439,16 +439,24 @@ def _normalize_grid(ds: xr.Dataset, label: str) -> xr.Dataset:
 
 def _find_variable(ds: xr.Dataset, name: str, spec: dict, taken: set) -> str | None:
     free = [v for v in ds.data_vars if v not in taken]
-    for var in free:
-        if ds[var].attrs.get("standard_name") in spec["standard_names"]:
-            if name == "z500" and not _has_level(ds[var], 500.0):
-                continue
-            return str(var)
-    for var in free:
-        if str(var).lower() in spec["names"] and "standard_name" not in ds[var].attrs:
-            if name == "z500" and not _has_level(ds[var], 500.0):
-                continue
-            return str(var)
+    by_standard_name = [
+        v for v in free if ds[v].attrs.get("standard_name") in spec["standard_names"]
+    ]
+    by_name = [
+        v for v in free if str(v).lower() in spec["names"] and "standard_name" not in ds[v].attrs
+    ]
+    for var in [*by_standard_name, *by_name]:
+        if name == "z500" and not _has_level(ds[var], 500.0):
+            levels = np.atleast_1d(ds[var]["plev"].values).tolist()
+            warnings.warn(
+                f"variable {var!r} looks like geopotential but has no 500 hPa level "
+                f"(levels {levels} hPa), so no z500 is taken from it; give a field that "
+                "includes 500 hPa for the NAO and the weather regimes",
+                InputWarning,
+                stacklevel=4,
+            )
+            continue
+        return str(var)
     return None
 
 
@@ -608,5 +616,6 @@ def _to_daily(ds: xr.Dataset, daily: str, label: str) -> xr.Dataset:
         )
     out = ds.resample(time="1D").mean(keep_attrs=True)
     for name in ds.data_vars:
+        out[name] = out[name].transpose(*ds[name].dims)  # resample moves time first
         out[name].attrs = {**ds[name].attrs, "cell_methods": "time: mean (daily)"}
     return out

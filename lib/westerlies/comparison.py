@@ -1,0 +1,363 @@
+"""The main job: every diagnostic for a set of datasets, on one common basis, with significance.
+
+`compare` opens each dataset, selects the season, computes anomalies, fits the NAO, the weather
+regimes and the jet categories once on the fitting dataset (the reference, or the baseline when
+there is no reference), applies them to every dataset, and tests every difference by resampling
+blocks (one member in one season). The result, a `Comparison`, holds a tidy summary table, the
+daily indices, the maps and the fitted objects, and writes the figure set with `write`.
+
+Anomalies are taken against each dataset's own climatology by default (``anomalies.against =
+"own"``): mean-state differences then show in the Z500 maps and do not leak into the modes.
+``"baseline"`` takes the baseline's climatology for every model dataset (same calendar needed),
+so a mean response projects onto the indices and regime occupancies too.
+"""
+
+from __future__ import annotations
+
+import time
+import warnings
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+import xarray as xr
+
+from . import seasons, timeaxis
+from .anomalies import anomalies, climatology
+from .config import validate_options
+from .data import open_dataset
+from .errors import ConfigError, InputError, InputWarning
+from .summary import SummaryBuilder
+
+__all__ = ["Comparison", "compare"]
+
+INDEX_NAMES = ("nao", "jet_latitude", "jet_speed")
+
+
+@dataclass
+class Prepared:
+    """One dataset, opened and reduced to what the diagnostics need (season already selected)."""
+
+    label: str
+    z_anoms: xr.DataArray | None  # daily (or coarser) Z500 anomalies, m
+    z_season: xr.DataArray | None  # raw Z500 in the season, m (for mean-state maps)
+    jet: xr.Dataset | None  # latitude, speed on (member, time)
+    sst_anoms: xr.DataArray | None
+    daily: bool
+    sources: list[dict]
+
+
+@dataclass
+class Comparison:
+    """Every diagnostic for every dataset, on a common basis, with its significance.
+
+    Attributes
+    ----------
+    labels : dataset labels in order; `reference` and `baseline` are among them.
+    fit_on : label of the dataset the NAO, regimes and jet categories were fitted on.
+    summary : tidy table, one row per (diagnostic, quantity, dataset, versus): columns
+        diagnostic, quantity, dataset, value, ci_low, ci_high, versus, p_value, significant.
+    indices : label -> Dataset of daily `nao`, `jet_latitude`, `jet_speed`, `regime`.
+    maps : Dataset of Z500 season means, biases and responses with p-values and FDR masks.
+    nao, regimes, jet_modes : the fitted objects (common basis).
+    details : other labelled results used by the figures (densities, ACFs, centroids, ...).
+    """
+
+    labels: list[str]
+    reference: str | None
+    baseline: str
+    fit_on: str
+    season: str
+    summary: pd.DataFrame
+    indices: dict[str, xr.Dataset]
+    maps: xr.Dataset
+    nao: Any
+    regimes: Any
+    jet_modes: Any
+    details: dict[str, Any]
+    options: dict[str, Any]
+    sources: dict[str, list[dict]]
+    timings: dict[str, float] = field(default_factory=dict)
+
+    # ------------------------------------------------------------------ outputs
+    def write(self, out_dir: str | Path, overwrite: bool = False, *, progress=None) -> Path:
+        """Write the figure set (see `westerlies.report`); refuses an existing directory."""
+        from .report import write_report
+
+        out = self.options["output"]
+        return write_report(
+            self,
+            out_dir,
+            overwrite=overwrite,
+            formats=out["formats"],
+            dpi=out["dpi"],
+            progress=progress,
+        )
+
+    def tables(self) -> dict[str, pd.DataFrame]:
+        """The summary and the per-topic tables written as CSV."""
+        from .report_tables import tables
+
+        return tables(self)
+
+    def figures(self):
+        """(name, caption, Figure) for every figure of the set, made one at a time."""
+        from .report_figures import figure_set
+
+        return figure_set(self)
+
+    def methods(self) -> list[tuple[str, str]]:
+        from .report_tables import methods
+
+        return methods(self)
+
+    def provenance(self) -> dict[str, Any]:
+        from .report_tables import provenance
+
+        return provenance(self)
+
+
+# ------------------------------------------------------------------------------ progress
+
+
+class _Steps:
+    """Console progress for the long steps; silent when `enabled` is False."""
+
+    def __init__(self, enabled: bool | Callable[[str], None]):
+        self.say = enabled if callable(enabled) else (print if enabled else None)
+        self.start = time.perf_counter()
+        self.timings: dict[str, float] = {}
+
+    def __call__(self, text: str) -> None:
+        if self.say is not None:
+            self.say(f"[{time.perf_counter() - self.start:7.1f} s] {text}")
+
+    def timed(self, name: str):
+        steps = self
+
+        class _Timer:
+            def __enter__(self):
+                steps(f"{name} ...")
+                self.t0 = time.perf_counter()
+
+            def __exit__(self, *exc):
+                steps.timings[name] = time.perf_counter() - self.t0
+
+        return _Timer()
+
+
+# ------------------------------------------------------------------------------ opening
+
+
+def _open(label: str, spec: Any) -> tuple[xr.Dataset, list[dict]]:
+    """Open one dataset given as a Dataset, a path or glob, a list of paths, or a dict."""
+    kwargs: dict[str, Any] = {}
+    if isinstance(spec, Mapping) and not isinstance(spec, xr.Dataset):
+        kwargs = {k: v for k, v in spec.items() if k != "path"}
+        if "path" not in spec:
+            raise ConfigError.make(
+                f"dataset {label!r}",
+                f"keys {sorted(spec)}",
+                "a 'path' key",
+                "give {'path': ...}",
+            )
+        spec = spec["path"]
+    ds = open_dataset(spec, **kwargs)
+    return ds, _source_info(spec)
+
+
+def _source_info(spec: Any) -> list[dict]:
+    if isinstance(spec, xr.Dataset):
+        return [{"path": "(in-memory dataset)", "bytes": int(spec.nbytes)}]
+    import glob
+
+    paths = (
+        sorted(glob.glob(str(spec))) if isinstance(spec, (str, Path)) else [str(p) for p in spec]
+    )
+    return [{"path": str(p), "bytes": Path(p).stat().st_size} for p in paths if Path(p).exists()]
+
+
+def _prepare(
+    label: str,
+    ds: xr.Dataset,
+    sources: list[dict],
+    season: str,
+    opts: dict,
+    clim: dict[str, xr.DataArray] | None,
+) -> tuple[Prepared, dict[str, xr.DataArray]]:
+    """Anomalies, season selection and the jet index of one dataset. Returns its climatologies."""
+    from .filters import select_filtered_season
+    from .jet import jet_index
+
+    smoothing = opts["anomalies"]["smoothing_days"]
+    own_clim: dict[str, xr.DataArray] = {}
+    daily = timeaxis.time_kind(ds["time"]) == "daily"
+
+    def anoms_of(name: str) -> xr.DataArray | None:
+        if name not in ds:
+            return None
+        kw = {"smoothing_days": smoothing} if daily else {}
+        own_clim[name] = climatology(ds[name], **kw)
+        base = clim.get(name) if clim else None
+        a = anomalies(ds[name], climatology=base if base is not None else own_clim[name])
+        return _quiet_season(a, season)
+
+    z_anoms = anoms_of("z500")
+    sst_anoms = anoms_of("sst")
+    z_season = _quiet_season(ds["z500"], season) if "z500" in ds else None
+    jet = None
+    if "u" in ds and daily:
+        j = opts["jet"]
+        index = jet_index(
+            ds["u"],
+            levels=tuple(j["levels"]),
+            sector=tuple(j["sector"]),
+            lat_range=tuple(j["lat_range"]),
+            cutoff_days=j["cutoff_days"],
+            n_weights=j["n_weights"],
+        )
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", InputWarning)
+            jet = select_filtered_season(index, season).load()
+    prepared = Prepared(label, z_anoms, z_season, jet, sst_anoms, daily, sources)
+    return prepared, own_clim
+
+
+def _quiet_season(da: xr.DataArray, season: str) -> xr.DataArray:
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", InputWarning)
+        return seasons.select_season(da, season)
+
+
+# ------------------------------------------------------------------------------ the job
+
+
+def compare(
+    datasets: Mapping[str, Any],
+    reference: Any = None,
+    baseline: str | None = None,
+    season: str = "DJF",
+    n_resamples: int = 1000,
+    seed: int = 0,
+    *,
+    progress: bool | Callable[[str], None] = False,
+    **options: Any,
+) -> Comparison:
+    """Run every diagnostic for `datasets` on a common basis and test every difference.
+
+    Parameters
+    ----------
+    datasets : label -> a Dataset, a path or glob, a list of member files, or a dict of
+        `open_dataset` keywords with a ``path``. Everything goes through `open_dataset`.
+    reference : a label in `datasets`, or a dataset (or path) added under the label
+        "reference": the reanalysis-like dataset the patterns are fitted on and every dataset
+        is validated against. None: the baseline is the fitting dataset.
+    baseline : the label the others are compared with (default: the first model dataset).
+    season : the season, e.g. "DJF" (initials of consecutive months).
+    n_resamples : bootstrap and permutation replicates.
+    seed : seed of every random step (k-means, bootstrap, permutation).
+    progress : print progress of the long steps (or a callable taking a line of text).
+    **options : option groups as in the configuration file (README, "Configuration"), e.g.
+        ``jet={"cutoff_days": 10}``, ``regimes={"n_init": 50}``, ``resampling={"alpha": 0.1}``.
+
+    Returns
+    -------
+    Comparison.
+    """
+    groups = dict(options)
+    groups.setdefault("resampling", {})
+    groups["resampling"] = {**groups["resampling"], "n_resamples": n_resamples, "seed": seed}
+    opts = validate_options(groups)
+    steps = _Steps(progress)
+    specs = dict(datasets)
+    if not specs:
+        raise ConfigError.make("datasets", "an empty mapping", "at least one dataset", "give one")
+    ref_label = None
+    if reference is not None:
+        if isinstance(reference, str) and reference in specs:
+            ref_label = reference
+        else:
+            ref_label = "reference"
+            if ref_label in specs:
+                raise ConfigError.make(
+                    "reference",
+                    "a dataset while a dataset is already labelled 'reference'",
+                    "the label of the reference among datasets, or a new dataset",
+                    "pass reference='reference'",
+                )
+            specs = {ref_label: reference, **specs}
+    models = [k for k in specs if k != ref_label]
+    if baseline is None:
+        baseline = models[0] if models else ref_label
+    if baseline not in specs:
+        raise ConfigError.make(
+            "baseline",
+            repr(baseline),
+            f"one of the dataset labels {list(specs)}",
+            "name one of the datasets",
+        )
+    fit_on = ref_label or baseline
+    labels = list(specs)
+
+    opened: dict[str, tuple[xr.Dataset, list[dict]]] = {}
+    with steps.timed("opening and normalizing"):
+        for label in labels:
+            opened[label] = _open(label, specs[label])
+            if "z500" not in opened[label][0]:
+                raise InputError.make(
+                    f"dataset {label!r}",
+                    f"variables {sorted(opened[label][0].data_vars)}",
+                    "geopotential height (z500) in every dataset",
+                    "add Z500 or name it with variables={'z500': ...}",
+                )
+
+    prepared: dict[str, Prepared] = {}
+    with steps.timed("anomalies, season and jet index"):
+        base_clim = None
+        order = [baseline] + [k for k in labels if k != baseline]
+        for label in order:
+            use = (
+                base_clim
+                if (
+                    opts["anomalies"]["against"] == "baseline"
+                    and label not in (baseline, ref_label)
+                )
+                else None
+            )
+            prepared[label], own = _prepare(label, *opened[label], season, opts, use)
+            if label == baseline:
+                base_clim = own
+        prepared = {k: prepared[k] for k in labels}
+
+    from .diagnostics import run_diagnostics
+
+    results = run_diagnostics(prepared, labels, fit_on, baseline, ref_label, opts, steps)
+    with steps.timed("summary table"):
+        builder = SummaryBuilder(prepared, results, labels, baseline, ref_label, opts)
+        summary = builder.build()
+    steps(f"done: {len(summary)} summary rows")
+    return Comparison(
+        labels=labels,
+        reference=ref_label,
+        baseline=baseline,
+        fit_on=fit_on,
+        season=str(season),
+        summary=summary,
+        indices=results["indices"],
+        maps=results["maps"],
+        nao=results["nao"],
+        regimes=results["regimes"],
+        jet_modes=results["jet_modes"],
+        details=results,
+        options=opts,
+        sources={k: v.sources for k, v in prepared.items()},
+        timings=steps.timings,
+    )
+
+
+def resample_kwargs(opts: dict) -> dict:
+    """n_resamples and seed of the resampling options, for the engine's functions."""
+    res = opts["resampling"]
+    return {"n_resamples": res["n_resamples"], "seed": res["seed"]}

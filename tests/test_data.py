@@ -1,0 +1,477 @@
+"""Opening and normalizing data: `westerlies.data.open_dataset` and the canonical form."""
+
+from __future__ import annotations
+
+import warnings
+from pathlib import Path
+
+import dask
+import dask.array as dsa
+import netCDF4
+import numpy as np
+import pytest
+import xarray as xr
+
+from westerlies import timeaxis
+from westerlies.data import open_dataset
+from westerlies.errors import GridError, InputError, InputWarning, TimeStepError, UnitsError
+
+G0 = 9.80665  # standard gravity, m s-2: CGPM (1901), as adopted by WMO
+
+
+def _open_quiet(source, **kwargs) -> xr.Dataset:
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", InputWarning)
+        return open_dataset(source, **kwargs)
+
+
+def _write_members(ds: xr.Dataset, directory: Path, stem: str = "member") -> list[Path]:
+    """One file per member, without a member dimension inside (members as files)."""
+    directory.mkdir(parents=True, exist_ok=True)
+    member_dim = "realization" if "realization" in ds.dims else "member"
+    paths = []
+    for i in range(ds.sizes[member_dim]):
+        path = directory / f"{stem}_{i:03d}.nc"
+        ds.isel({member_dim: i}, drop=True).to_netcdf(path)
+        paths.append(path)
+    return paths
+
+
+# --- the eofs reanalysis sample ----------------------------------------------------------------
+
+
+def test_eofs_sample_opens_in_canonical_form(eofs_sample_path):
+    # Source: NCEP/NCAR reanalysis DJF-mean Z500 (Kalnay et al. 1996), shipped by eofs as
+    # hgt_djf.nc; its geopotential_height variable carries no units attribute.
+    with pytest.warns(InputWarning, match=r"(?i)units"):
+        ds = open_dataset(eofs_sample_path)
+    z = ds["z500"]
+    assert z.dims == ("member", "time", "lat", "lon")
+    assert z.sizes == {"member": 1, "time": 65, "lat": 29, "lon": 49}
+    np.testing.assert_array_equal(ds["member"].values, [0])
+    np.testing.assert_allclose(ds["lat"].values, np.arange(20.0, 90.1, 2.5))
+    np.testing.assert_allclose(ds["lon"].values, np.arange(-80.0, 40.1, 2.5))
+    assert z.attrs["units"] == "m"
+    assert z.attrs["standard_name"] == "geopotential_height"
+    assert z.attrs.get("long_name")
+    # The values are the file's own, read here with netCDF4 (independent of xarray): already
+    # metres, lat 20..90 ascending and lon -80..40 in the file, so nothing is reordered.
+    with netCDF4.Dataset(eofs_sample_path) as nc:
+        raw = np.asarray(nc.variables["z"][:], dtype=float)[:, 0]
+        lat = np.asarray(nc.variables["latitude"][:])
+    assert np.all(np.diff(lat) > 0)
+    np.testing.assert_allclose(z.isel(member=0).values, raw)
+    # Z500 lies between about 4.8 and 6 km everywhere (common practice, a sanity range).
+    assert 4700 < float(z.min()) and float(z.max()) < 6000
+
+
+def test_eofs_sample_time_is_mid_january_one_per_winter(eofs_sample_path):
+    # Source: hgt_djf.nc (eofs) dates each DJF mean in mid-January, 1948 to 2012.
+    ds = _open_quiet(eofs_sample_path)
+    assert timeaxis.time_kind(ds["time"]) == "seasonal"
+    assert set(ds["time"].dt.month.values) == {1}
+    np.testing.assert_array_equal(ds["time"].dt.year.values, np.arange(1948, 2013))
+
+
+# --- normalization invariance ------------------------------------------------------------------
+
+
+def _lat_descending(ds, tmp_path):
+    return ds.isel(lat=slice(None, None, -1)), {}
+
+
+def _lon_0_360(ds, tmp_path):
+    lon = xr.DataArray(ds["lon"].values % 360.0, dims="lon", attrs=ds["lon"].attrs)
+    return ds.assign_coords(lon=lon).sortby("lon"), {}
+
+
+def _plev_pa(ds, tmp_path):
+    plev = xr.DataArray(ds["plev"].values * 100.0, dims="plev", attrs={**ds["plev"].attrs})
+    plev.attrs["units"] = "Pa"
+    return ds.assign_coords(plev=plev), {}
+
+
+def _geopotential(ds, tmp_path):
+    # geopotential = g0 * geopotential height (WMO definition of geopotential height)
+    z = (ds["zg"] * G0).assign_attrs(standard_name="geopotential", units="m2 s-2")
+    return ds.drop_vars("zg").assign(z=z), {}
+
+
+def _decametres(ds, tmp_path):
+    zg = (ds["zg"] / 10.0).assign_attrs(standard_name="geopotential_height", units="dam")
+    return ds.assign(zg=zg), {}
+
+
+def _rename_coords(ds, names, keep):
+    """Rename lat/lon/plev (and time) and keep only the attributes in `keep` on them."""
+    out = ds.rename(names)
+    for new in names.values():
+        if new in out.coords:
+            out[new].attrs = {k: v for k, v in out[new].attrs.items() if k in keep}
+    return out
+
+
+def _by_standard_name(ds, tmp_path):
+    out = ds.rename({"zg": "field_a", "ua": "field_b"})
+    out = _rename_coords(out, {"lat": "c_one", "lon": "c_two"}, keep={"standard_name"})
+    out = _rename_coords(out, {"plev": "c_three"}, keep={"standard_name", "units"})
+    return out, {}
+
+
+def _by_axis(ds, tmp_path):
+    out = ds.rename({"zg": "field_a", "ua": "field_b"})
+    out = _rename_coords(
+        out, {"lat": "yy", "lon": "xx", "plev": "zz", "time": "tt"}, keep={"axis", "units"}
+    )
+    return out, {}
+
+
+def _by_units(ds, tmp_path):
+    return _rename_coords(ds, {"lat": "q1", "lon": "q2"}, keep={"units"}), {}
+
+
+def _plev_by_units(ds, tmp_path):
+    return _rename_coords(ds, {"plev": "q3"}, keep={"units"}), {}
+
+
+def _by_user_names(ds, tmp_path):
+    out = ds.rename({"zg": "hgt", "ua": "uwnd"})
+    for name in ("hgt", "uwnd"):
+        out[name].attrs = {"units": out[name].attrs["units"]}
+    return out, {"variables": {"z500": "hgt", "u": "uwnd"}}
+
+
+def _realization(ds, tmp_path):
+    return ds.rename({"member": "realization"}), {}
+
+
+def _member_dim_named(ds, tmp_path):
+    return ds.rename({"member": "run"}), {"member_dim": "run"}
+
+
+def _files_list(ds, tmp_path):
+    return [str(p) for p in _write_members(ds, tmp_path / "files")][::-1], {}
+
+
+def _files_glob(ds, tmp_path):
+    _write_members(ds, tmp_path / "glob")
+    return str(tmp_path / "glob" / "member_*.nc"), {}
+
+
+def _everything_at_once(ds, tmp_path):
+    out, _ = _lat_descending(ds, tmp_path)
+    out, _ = _lon_0_360(out, tmp_path)
+    out, _ = _plev_pa(out, tmp_path)
+    out, _ = _geopotential(out, tmp_path)
+    out = out.rename({"z": "field_a", "ua": "field_b", "member": "realization"})
+    out = _rename_coords(out, {"lat": "c_one", "lon": "c_two"}, keep={"standard_name"})
+    return [str(p) for p in _write_members(out, tmp_path / "all")], {}
+
+
+VARIANTS = [
+    _lat_descending,
+    _lon_0_360,
+    _plev_pa,
+    _geopotential,
+    _decametres,
+    _by_standard_name,
+    _by_axis,
+    _by_units,
+    _plev_by_units,
+    _by_user_names,
+    _realization,
+    _member_dim_named,
+    _files_list,
+    _files_glob,
+    _everything_at_once,
+]
+
+
+@pytest.fixture
+def base(raw_dataset):
+    return raw_dataset(members=3, periods=6)
+
+
+def test_canonical_form_of_cf_input(base):
+    ds = _open_quiet(base)
+    assert ds["z500"].dims == ("member", "time", "lat", "lon")
+    assert ds["u"].dims == ("member", "time", "plev", "lat", "lon")
+    # z500 is the 500 hPa level of the multi-level height
+    np.testing.assert_allclose(ds["z500"].values, base["zg"].sel(plev=500.0).values)
+    np.testing.assert_allclose(ds["u"].values, base["ua"].values)
+    assert ds["z500"].attrs["units"] == "m"
+    assert ds["z500"].attrs["standard_name"] == "geopotential_height"
+    assert ds["u"].attrs["units"] == "m s-1"
+    assert ds["u"].attrs["standard_name"] == "eastward_wind"
+    assert ds["z500"].attrs.get("long_name") and ds["u"].attrs.get("long_name")
+    assert np.all(np.diff(ds["lat"].values) > 0)
+    assert np.all(np.diff(ds["lon"].values) > 0)
+    assert ds["lon"].values.min() >= -180 and ds["lon"].values.max() < 180
+
+
+@pytest.mark.parametrize("variant", VARIANTS, ids=lambda f: f.__name__.strip("_"))
+def test_normalization_invariance(base, variant, tmp_path):
+    # Analytic: every variant is the same field under another convention, so the canonical
+    # form must not change (unit factors: g0 = 9.80665 m s-2, 1 hPa = 100 Pa, 1 dam = 10 m).
+    want = _open_quiet(base)
+    source, kwargs = variant(base, tmp_path)
+    got = _open_quiet(source, **kwargs)
+    for name in ("z500", "u"):
+        a, b = got[name], want[name]
+        if isinstance(source, (str, list)):  # members as files: numbered in sorted path order
+            assert a.sizes["member"] == 3
+            # (a `source` coordinate naming each member's file is allowed on top)
+            a = a.drop_vars(["member", "source"], errors="ignore")
+            b = b.drop_vars("member")
+        xr.testing.assert_allclose(a, b, rtol=1e-6)
+        assert got[name].attrs["units"] == want[name].attrs["units"]
+    # a sector across the Greenwich meridian (60W-0) is contiguous in the canonical form
+    np.testing.assert_allclose(got["lon"].sel(lon=slice(-60, 0)).values, [-60.0, -30.0, 0.0])
+
+
+def test_normalization_is_idempotent(base):
+    once = _open_quiet(base)
+    xr.testing.assert_identical(_open_quiet(once), once)
+
+
+def test_eofs_sample_is_idempotent(eofs_sample_path):
+    once = _open_quiet(eofs_sample_path)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", InputWarning)  # canonical input needs no assumption
+        twice = open_dataset(once)
+    xr.testing.assert_identical(twice, once)
+
+
+def test_eofs_sample_in_model_conventions(eofs_sample_path, tmp_path):
+    # Source: eofs' hgt_djf.nc (NCEP/NCAR reanalysis, Kalnay et al. 1996) rewritten as a model
+    # would: latitude descending, longitudes 0..360 (the sector 80W-40E then straddles the
+    # seam), geopotential in m2 s-2 (g0 = 9.80665), pressure in Pa. Same canonical field.
+    want = _open_quiet(eofs_sample_path)
+    with warnings.catch_warnings():
+        warnings.filterwarnings("ignore", message="Ambiguous reference date string")
+        raw = xr.open_dataset(eofs_sample_path).load()
+    raw = raw.drop_vars(["bounds_time", "bounds_latitude", "bounds_longitude"])
+    lon = raw["longitude"]
+    raw = raw.assign_coords(
+        longitude=("longitude", lon.values % 360.0, lon.attrs),
+        pressure=("pressure", raw["pressure"].values * 100.0, {"units": "Pa", "axis": "Z"}),
+    ).sortby("longitude")
+    raw = raw.isel(latitude=slice(None, None, -1))
+    raw["z"] = (raw["z"] * G0).assign_attrs(standard_name="geopotential", units="m2 s-2")
+    path = tmp_path / "hgt_model_conventions.nc"
+    raw.to_netcdf(path)
+    got = _open_quiet(path)
+    xr.testing.assert_allclose(got["z500"], want["z500"])
+
+
+def test_files_are_members_in_sorted_path_order(raw_dataset, tmp_path):
+    ds = raw_dataset(members=None, periods=4)
+    offsets = {"b": 100.0, "a": 0.0, "c": 200.0}
+    paths = []
+    for key, offset in offsets.items():  # written in the order b, a, c
+        path = tmp_path / f"run_{key}.nc"
+        ds.assign(zg=ds["zg"] + offset).to_netcdf(path)
+        paths.append(str(path))
+    got = _open_quiet(paths)
+    assert got.sizes["member"] == 3
+    z0 = ds["zg"].sel(plev=500.0).values
+    for i, offset in enumerate(sorted(offsets.values())):  # sorted names a, b, c -> 0, 100, 200
+        np.testing.assert_allclose(got["z500"].isel(member=i).values, z0 + offset)
+
+
+# --- members ---------------------------------------------------------------------------------
+
+
+def test_single_realization_gets_size_one_member(raw_dataset):
+    got = _open_quiet(raw_dataset(members=None))
+    assert got["z500"].dims[0] == "member"
+    np.testing.assert_array_equal(got["member"].values, [0])
+
+
+@pytest.mark.parametrize("name", ["realization", "ensemble", "number", "ens", "realisation"])
+def test_member_dimension_common_names(raw_dataset, name):
+    got = _open_quiet(raw_dataset(members=2).rename({"member": name}))
+    assert "member" in got.dims and name not in got.dims
+    assert got.sizes["member"] == 2
+
+
+# --- units -----------------------------------------------------------------------------------
+
+
+def test_mslp_and_sst_units(raw_dataset):
+    ds = raw_dataset(variables=("zg", "psl", "tos"))
+    sst_c = (ds["tos"] - 273.15).assign_attrs(standard_name="sea_surface_temperature", units="degC")
+    got = _open_quiet(ds.assign(tos=sst_c))
+    # SI definitions: 1 hPa = 100 Pa; T(K) = T(degC) + 273.15
+    np.testing.assert_allclose(got["mslp"].values, ds["psl"].values / 100.0)
+    np.testing.assert_allclose(got["sst"].values, ds["tos"].values, rtol=1e-12)
+    assert got["mslp"].attrs["units"] == "hPa"
+    assert got["sst"].attrs["units"] == "K"
+    assert got["mslp"].dims == got["sst"].dims == ("member", "time", "lat", "lon")
+
+
+def test_missing_units_with_standard_name_warns(raw_dataset):
+    ds = raw_dataset()
+    ds["zg"].attrs = {"standard_name": "geopotential_height"}
+    with pytest.warns(InputWarning, match=r"(?i)units"):
+        got = open_dataset(ds)
+    np.testing.assert_allclose(got["z500"].values, ds["zg"].sel(plev=500.0).values)
+    assert got["z500"].attrs["units"] == "m"
+
+
+def test_missing_units_without_standard_name_raises(raw_dataset):
+    ds = raw_dataset().rename({"zg": "hgt"})
+    ds["hgt"].attrs = {}
+    with pytest.raises(UnitsError, match="hgt") as info:
+        open_dataset(ds, variables={"z500": "hgt"})
+    assert "units" in str(info.value).lower()
+    assert issubclass(UnitsError, InputError)
+
+
+def test_unknown_units_raise(raw_dataset):
+    ds = raw_dataset()
+    ds["zg"].attrs["units"] = "furlongs"
+    with pytest.raises(UnitsError, match="furlongs"):
+        open_dataset(ds)
+
+
+# --- bad grids and missing variables ---------------------------------------------------------
+
+
+def test_curvilinear_grid_is_refused(raw_dataset):
+    ds = raw_dataset(members=None, variables=("zg",)).rename({"lat": "y", "lon": "x"})
+    ds = ds.drop_vars(["y", "x"])
+    lat2d, lon2d = np.meshgrid(
+        np.linspace(30, 70, ds.sizes["y"]), np.linspace(-180, 150, 12), indexing="ij"
+    )
+    lat2d = lat2d + 0.3 * np.sin(np.radians(lon2d))  # a rotated/curvilinear grid
+    ds = ds.assign_coords(
+        lat=(("y", "x"), lat2d, {"standard_name": "latitude", "units": "degrees_north"}),
+        lon=(("y", "x"), lon2d, {"standard_name": "longitude", "units": "degrees_east"}),
+    )
+    with pytest.raises(GridError, match=r"(?i)regrid"):
+        open_dataset(ds)
+
+
+def test_no_recognizable_variable(raw_dataset):
+    ds = raw_dataset(variables=("zg",)).rename({"zg": "mystery"})
+    ds["mystery"].attrs = {"units": "m"}
+    with pytest.raises(InputError, match=r"(?i)(z500|geopotential)"):
+        open_dataset(ds)
+
+
+def test_named_variable_not_in_file(raw_dataset):
+    with pytest.raises(InputError, match="not_there"):
+        open_dataset(raw_dataset(), variables={"z500": "not_there"})
+
+
+def test_height_without_500_hpa_is_not_dropped_silently(raw_dataset):
+    # A height field on levels that miss 500 hPa cannot give z500: an error, or at least a
+    # warning naming 500 hPa, never a dataset that just lacks z500 without a word.
+    ds = raw_dataset(plev=(1000.0, 850.0, 700.0, 250.0))
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            got = open_dataset(ds)
+        except InputError as err:
+            assert "500" in str(err)
+            return
+    assert "z500" not in got
+    assert any(issubclass(w.category, InputWarning) and "500" in str(w.message) for w in caught), [
+        str(w.message) for w in caught
+    ]
+
+
+def test_bad_options_raise(raw_dataset, tmp_path):
+    ds = raw_dataset()
+    with pytest.raises(InputError, match="zz"):
+        open_dataset(ds, variables={"zz": "zg"})
+    with pytest.raises(InputError, match="run"):
+        open_dataset(ds, member_dim="run")
+    with pytest.raises(InputError, match="nothing_here"):
+        open_dataset(str(tmp_path / "nothing_here_*.nc"))
+    with pytest.raises(InputError, match="absent"):
+        open_dataset(tmp_path / "absent.nc")
+
+
+# --- time axes -------------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize(
+    "calendar",
+    ["standard", "proleptic_gregorian", "noleap", "365_day", "all_leap", "366_day", "360_day"],
+)
+def test_calendars_survive_files(raw_dataset, calendar, tmp_path):
+    # CF Conventions section 4.4.1 (calendars): dates keep their year/month/day in every one.
+    ds = raw_dataset(start="2003-12-20", periods=75, calendar=calendar, members=None)
+    path = tmp_path / "cal.nc"
+    ds.to_netcdf(path)
+    got = _open_quiet(path)
+    for field in ("year", "month", "day"):
+        np.testing.assert_array_equal(
+            getattr(got["time"].dt, field).values, getattr(ds["time"].dt, field).values
+        )
+    same = {
+        "noleap": "365_day",
+        "365_day": "noleap",
+        "all_leap": "366_day",
+        "366_day": "all_leap",
+        "proleptic_gregorian": "standard",
+    }
+    assert timeaxis.calendar(got["time"]) in (calendar, same.get(calendar))
+    assert timeaxis.time_kind(got["time"]) == "daily"
+
+
+def test_daily_mean_of_subdaily_data(raw_dataset):
+    ds = raw_dataset(start="2001-01-01", periods=4 * 5, freq="6h", members=2)
+    got = _open_quiet(ds, daily="mean")
+    assert timeaxis.time_kind(got["time"]) == "daily"
+    assert got.sizes["time"] == 5
+    assert got["z500"].dims == ("member", "time", "lat", "lon")  # canonical order kept
+    assert got["u"].dims == ("member", "time", "plev", "lat", "lon")
+    # daily mean = mean of the four 6-hourly values of each day (reshape, independent of xarray)
+    z = ds["zg"].sel(plev=500.0).values  # member, time, lat, lon
+    want = z.reshape(2, 5, 4, *z.shape[2:]).mean(axis=2)
+    np.testing.assert_allclose(got["z500"].values, want)
+    np.testing.assert_array_equal(got["time"].dt.day.values, [1, 2, 3, 4, 5])
+
+
+def test_subdaily_data_refused_by_daily_function(raw_dataset):
+    got = _open_quiet(raw_dataset(start="2001-01-01", periods=12, freq="6h"))
+    with pytest.raises(TimeStepError, match=r"0\.25") as info:
+        timeaxis.require_daily(got["time"], "jet latitude")
+    message = str(info.value)
+    assert "jet latitude" in message and "daily='mean'" in message
+
+
+# --- laziness --------------------------------------------------------------------------------
+
+
+def _no_compute(dsk, keys, **kwargs):
+    raise AssertionError("open_dataset computed a dask graph; it should stay lazy")
+
+
+def test_multifile_input_stays_lazy(raw_dataset, tmp_path):
+    ds = raw_dataset(members=3, periods=12)
+    _write_members(ds, tmp_path)
+    pattern = str(tmp_path / "member_*.nc")
+    with dask.config.set(scheduler=_no_compute):  # any compute inside raises
+        got = _open_quiet(pattern, chunks={"time": 4})
+    for name in ("z500", "u"):
+        assert isinstance(got[name].data, dsa.Array), name
+        assert got[name].chunks is not None
+    assert max(got["z500"].chunks[got["z500"].dims.index("time")]) <= 4
+    eager = _open_quiet(pattern)
+    xr.testing.assert_allclose(got["z500"].compute(), eager["z500"])
+    xr.testing.assert_allclose(got["u"].compute(), eager["u"])
+
+
+def test_lazy_conversions_stay_lazy(raw_dataset, tmp_path):
+    out, _ = _geopotential(raw_dataset(members=2, periods=8), tmp_path)
+    out, _ = _lon_0_360(out, tmp_path)
+    out = out.isel(lat=slice(None, None, -1))
+    _write_members(out, tmp_path)
+    with dask.config.set(scheduler=_no_compute):
+        got = _open_quiet(str(tmp_path / "member_*.nc"), chunks={})
+    assert isinstance(got["z500"].data, dsa.Array)
+    assert got["z500"].attrs["units"] == "m"
