@@ -270,7 +270,7 @@ def test_files_are_members_in_sorted_path_order(raw_dataset, tmp_path):
     paths = []
     for key, offset in offsets.items():  # written in the order b, a, c
         path = tmp_path / f"run_{key}.nc"
-        ds.assign(zg=ds["zg"] + offset).to_netcdf(path)
+        ds.assign(zg=ds["zg"].copy(data=ds["zg"].values + offset)).to_netcdf(path)  # keeps attrs
         paths.append(str(path))
     got = _open_quiet(paths)
     assert got.sizes["member"] == 3

@@ -3,6 +3,7 @@
     westerlies check FILE... [--var NAME=VAR] [--member-dim DIM] [--daily-mean]
     westerlies demo-data OUT [--members N] [--winters N] [--seed S]
     westerlies demo [--out DIR] [--members N] [--overwrite] [--quiet]
+    westerlies run CONFIG.toml [--out DIR] [--overwrite] [--quiet]
 
 Exit status: 0 success, 1 the input is not usable or the job failed on bad input, 2 usage errors.
 """
@@ -10,7 +11,6 @@ Exit status: 0 success, 1 the input is not usable or the job failed on bad input
 from __future__ import annotations
 
 import argparse
-import shutil
 import sys
 import tempfile
 from collections.abc import Sequence
@@ -54,6 +54,12 @@ def _parser() -> argparse.ArgumentParser:
     demo.add_argument("--members", type=int, default=None, help="members per ensemble")
     demo.add_argument("--overwrite", action="store_true", help="replace an existing output")
     demo.add_argument("--quiet", action="store_true", help="no progress messages")
+
+    run = sub.add_parser("run", help="the whole job on the datasets of a configuration file")
+    run.add_argument("config", type=Path, help="TOML configuration file (see the README)")
+    run.add_argument("--out", type=Path, default=None, help="output directory")
+    run.add_argument("--overwrite", action="store_true", help="replace an existing output")
+    run.add_argument("--quiet", action="store_true", help="no progress messages")
     return parser
 
 
@@ -86,8 +92,9 @@ def _check(args) -> int:
     return 0 if report.ok else 1
 
 
-def _refuse_existing(out: Path, overwrite: bool) -> None:
-    if out.exists() and (not out.is_dir() or any(out.iterdir())) and not overwrite:
+def _refuse_existing(out: Path, overwrite: bool, allow_empty: bool = False) -> None:
+    empty = out.is_dir() and not any(out.iterdir())
+    if out.exists() and not overwrite and not (allow_empty and empty):
         raise ConfigError.make(
             f"output {str(out)!r}",
             "an existing, non-empty path",
@@ -99,7 +106,7 @@ def _refuse_existing(out: Path, overwrite: bool) -> None:
 def _demo_data(args) -> int:
     from . import synthetic
 
-    _refuse_existing(args.out, overwrite=False)
+    _refuse_existing(args.out, overwrite=False, allow_empty=True)
     sizes = {k: v for k, v in (("members", args.members), ("winters", args.winters)) if v}
     written = synthetic.write_scenario(args.out, seed=args.seed, **sizes)
     for name, paths in written.items():
@@ -107,46 +114,90 @@ def _demo_data(args) -> int:
     return 0
 
 
+def _progress(quiet: bool):
+    """A progress printer for the long steps, or None when quiet."""
+    if quiet:
+        return None
+    return lambda text: print(text, flush=True)
+
+
+def _dask_progress(enabled: bool):
+    """dask's progress bar around the work when asked (it prints only for dask-backed data)."""
+    import contextlib
+
+    if not enabled:
+        return contextlib.nullcontext()
+    from dask.diagnostics import ProgressBar
+
+    return ProgressBar(minimum=2.0)
+
+
+def _compare_and_write(config: dict, out: Path, overwrite: bool, quiet: bool) -> int:
+    from .comparison import compare
+
+    _refuse_existing(out, overwrite)  # before any work: a refused run touches nothing
+    options = dict(config["options"])
+    resampling = options.pop("resampling")
+    say = _progress(quiet)
+    with _dask_progress(not quiet):
+        result = compare(
+            config["datasets"],
+            reference=config["reference"],
+            baseline=config["baseline"],
+            season=config["season"],
+            n_resamples=resampling["n_resamples"],
+            seed=resampling["seed"],
+            progress=say or False,
+            resampling={k: v for k, v in resampling.items() if k not in ("n_resamples", "seed")},
+            **options,
+        )
+        result.write(out, overwrite=overwrite, progress=say)
+    if say:
+        say(f"figure set written to {out}")
+    return 0
+
+
+def _run(args) -> int:
+    from .config import load_config
+
+    config = load_config(args.config)
+    out = args.out or Path(args.config).parent / config["options"]["output"]["directory"]
+    return _compare_and_write(config, out, args.overwrite, args.quiet)
+
+
 def _demo(args) -> int:
-    """Write the demo data into a temporary directory, check it, then move it into place."""
+    """The whole job on the demo scenario, read back from netCDF files like any user's data."""
     from . import synthetic
-    from .check import check_input
+    from .config import validate_options
 
     out = args.out
     _refuse_existing(out, args.overwrite)
     out.parent.mkdir(parents=True, exist_ok=True)
-    work = Path(tempfile.mkdtemp(prefix=f".{out.name}-", dir=out.parent))
-    try:
-        sizes = {"members": args.members} if args.members else {}
+    with tempfile.TemporaryDirectory(prefix=".westerlies-demo-data-", dir=out.parent) as tmp:
         if not args.quiet:
-            print("writing the demo scenario ...", flush=True)
-        written = synthetic.write_scenario(work / "data", **sizes)
-        ok = True
-        for name, paths in written.items():
-            source = paths[0] if len(paths) == 1 else paths
-            report = check_input(
-                [str(p) for p in source] if isinstance(source, list) else str(source)
-            )
-            (work / f"check-{name}.txt").write_text(str(report).replace(str(work), str(out)))
-            ok &= report.ok
-            if not args.quiet:
-                print(str(report).replace(str(work), str(out)), flush=True)
-        if out.exists():
-            shutil.rmtree(out)
-        work.rename(out)
-    except BaseException:
-        shutil.rmtree(work, ignore_errors=True)
-        raise
-    if not args.quiet:
-        print(f"demo written to {out}")
-    return 0 if ok else 1
+            print("writing the demo scenario as netCDF files ...", flush=True)
+        sizes = {"members": args.members} if args.members else {}
+        files = synthetic.write_scenario(Path(tmp), **sizes)
+        config = {
+            "datasets": {
+                "Gale reference": str(files["reference"][0]),
+                "ctl-slab": [str(p) for p in files["control"]],
+                "ohtx-plus": [str(p) for p in files["perturbed"]],
+            },
+            "reference": "Gale reference",
+            "baseline": "ctl-slab",
+            "season": "DJF",
+            "options": validate_options({}),
+        }
+        return _compare_and_write(config, out, args.overwrite, args.quiet)
 
 
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; returns the exit status."""
     args = _parser().parse_args(argv)
     try:
-        return {"check": _check, "demo-data": _demo_data, "demo": _demo}[args.command](args)
+        commands = {"check": _check, "demo-data": _demo_data, "demo": _demo, "run": _run}
+        return commands[args.command](args)
     except ConfigError as err:
         print(f"westerlies: {err}", file=sys.stderr)
         return 2

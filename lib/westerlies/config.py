@@ -33,7 +33,7 @@ DEFAULTS: dict[str, dict[str, Any]] = {
     "sst": {"domain": [0.0, 70.0, -80.0, 0.0], "positive_at": [40.0, -60.0]},
     "anomalies": {"against": "own", "smoothing_days": 15.0},
     "resampling": {"n_resamples": 1000, "alpha": 0.05, "seed": 0, "fdr": "wilks"},
-    "output": {"formats": ["png"], "dpi": 150},
+    "output": {"formats": ["png"], "dpi": 150, "directory": "westerlies-out"},
 }
 
 _DATASET_KEYS = {

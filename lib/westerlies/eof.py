@@ -48,7 +48,7 @@ Method = Literal["auto", "exact", "fast"]
 Missing = Literal["raise", "fill"]
 
 #: auto uses the exact SVD while samples x grid points stays below this (about 40 MB of floats).
-AUTO_EXACT_MAX_VALUES = 5_000_000
+AUTO_EXACT_MAX_VALUES = 1_000_000
 #: decompositions of matrices with fewer elements than this run on one BLAS thread: measured
 #: 5-10x faster on a shared 2-core machine (eigh of 1325 x 1325: 0.5 s against 4 s).
 SINGLE_THREAD_MAX_ELEMENTS = 4_000_000
@@ -129,8 +129,7 @@ class EOFResult:
         vectors = _stack_space(self.eofs, valid)  # (p, k)
         w = self.weights.values.ravel()[valid]
         mean = self.mean.values.ravel()[valid]
-        x = _sample_matrix(data)[:, valid]
-        raw, bad = _project_matrix(x, mean, vectors * w[:, None])
+        raw, bad = _project_matrix(_sample_matrix(data), valid, mean, vectors * w[:, None])
         if bad.any() and missing != "fill":
             raise _missing_error("anoms", int(bad.sum()), "samples with missing values")
         pcs = raw / np.sqrt(self.eigenvalues.values)[None, :]
@@ -169,9 +168,10 @@ def fit(
     n_modes : number of modes returned (one more is computed to judge separability).
     weights : "sqrt_coslat" (default; sqrt(cos(latitude)), common practice), None for no
         weighting, or a DataArray on (lat,) or (lat, lon) of weights applied to the data.
-    method : "exact" (SVD through `eofs`), "fast" (one-pass cross-product or Gram matrix and
-        `scipy.linalg.eigh`) or "auto" (exact while samples x points <= AUTO_EXACT_MAX_VALUES
-        and the data are in memory).
+    method : "exact" (SVD through `eofs`; loads the data), "fast" (one-pass cross-product or
+        Gram matrix and `scipy.linalg.eigh`; the Gram matrix also loads the data, and is used
+        only when there are fewer samples than grid points) or "auto" (exact while
+        samples x points <= AUTO_EXACT_MAX_VALUES and the data are in memory, else fast).
     missing : grid points missing at every sample (a land mask) are always left out of the
         analysis (NaN in the patterns). Missing values that vary in time raise
         `MissingValueError` with "raise" (default); "fill" takes them as zero anomalies.
@@ -229,7 +229,7 @@ def fit(
     else:
         cov = (xtx[np.ix_(valid, valid)] - n * np.outer(mean, mean)) / (n - 1)
         vectors, eigenvalues, total_var = _eig_covariance(cov, w, k)
-        raw, _ = _project_matrix(x[:, valid], mean, vectors * w[:, None])
+        raw, _ = _project_matrix(x, valid, mean, vectors * w[:, None])
         pcs = raw / np.sqrt(eigenvalues)[None, :]
         patterns = cov @ (vectors * w[:, None]) / np.sqrt(eigenvalues)[None, :]
         solver = (
@@ -322,17 +322,20 @@ def _moments(x, *, cross: bool) -> tuple[np.ndarray, np.ndarray | None, np.ndarr
     return total, xtx, count
 
 
-def _project_matrix(x, mean: np.ndarray, vectors: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """(x - mean) @ vectors with missing values taken as 0, and which rows had any.
+def _project_matrix(
+    x, valid: np.ndarray, mean: np.ndarray, vectors: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """(x[:, valid] - mean) @ vectors with missing values taken as 0, and which rows had any.
 
-    x (n, p), mean (p,), vectors (p, k) -> (n, k), (n,) bool.
+    x (n, p), valid (p,) bool, mean (q,), vectors (q, k) with q valid columns -> (n, k), (n,).
+    Row chunk by row chunk (or dask chunk by chunk): the data are never copied whole.
     """
     offset = mean @ vectors
     if _is_dask(x):
         import dask
         import dask.array as da
 
-        x = x.rechunk({1: -1})
+        x = x.rechunk({1: -1})[:, valid]
         nan = da.isnan(x)
         prod = da.where(nan, 0.0, x.astype(np.float64)) @ vectors
         out, bad = dask.compute(prod, nan.any(axis=1))
@@ -340,8 +343,9 @@ def _project_matrix(x, mean: np.ndarray, vectors: np.ndarray) -> tuple[np.ndarra
     n = x.shape[0]
     out = np.empty((n, vectors.shape[1]))
     bad = np.zeros(n, dtype=bool)
+    every = bool(valid.all())
     for rows in _row_chunks(n, x.shape[1]):
-        block = np.asarray(x[rows], dtype=np.float64)
+        block = np.asarray(x[rows] if every else x[rows][:, valid], dtype=np.float64)
         nan = np.isnan(block)
         if nan.any():
             bad[rows] = nan.any(axis=1)

@@ -8,6 +8,7 @@ shapefile directly. Where none is found, maps draw without coastlines and say so
 from __future__ import annotations
 
 import functools
+import logging
 import os
 import warnings
 from pathlib import Path
@@ -56,7 +57,14 @@ def coastlines():
     import cartopy.feature as cfeature
     import cartopy.io.shapereader as shapereader
 
-    geometries = list(shapereader.Reader(str(path)).geometries())
+    # pyshp logs a note for each ring-only polygon of the coarse GSHHS file; they draw fine
+    shapefile_log = logging.getLogger("shapefile")
+    level = shapefile_log.level
+    shapefile_log.setLevel(logging.ERROR)
+    try:
+        geometries = list(shapereader.Reader(str(path)).geometries())
+    finally:
+        shapefile_log.setLevel(level)
     return cfeature.ShapelyFeature(
         geometries, ccrs.PlateCarree(), facecolor="none", edgecolor="0.3", linewidth=0.6
     )

@@ -30,6 +30,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
+from ._files import publish_mode
 from .errors import ConfigError
 
 __all__ = ["safe_name", "write_report"]
@@ -109,6 +110,7 @@ def write_report(
         )
     out.parent.mkdir(parents=True, exist_ok=True)
     work = Path(tempfile.mkdtemp(prefix=f".{out.name}.partial-", dir=out.parent))
+    publish_mode(work, directory=True)
     try:
         _write_all(comparison, work, formats, dpi, progress)
         if out.exists():

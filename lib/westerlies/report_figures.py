@@ -17,7 +17,7 @@ def _stack(values: dict[str, xr.DataArray], dim: str = "dataset") -> xr.DataArra
     return out.assign_coords({dim: labels})
 
 
-def _summary_values(summary, diagnostic: str, prefix: str, labels, names, versus=""):
+def _summary_values(summary, diagnostic: str, prefix: str, labels, names, versus=None):
     """(dataset, regime) arrays of value, ci_low, ci_high, significant from the summary."""
     shape = (len(labels), len(names))
     arrays = {c: np.full(shape, np.nan) for c in ("value", "ci_low", "ci_high", "p_value")}
@@ -26,7 +26,7 @@ def _summary_values(summary, diagnostic: str, prefix: str, labels, names, versus
             rows = summary[
                 (summary["diagnostic"] == diagnostic)
                 & (summary["dataset"] == label)
-                & (summary["versus"] == versus)
+                & (summary["versus"].isna() if versus is None else summary["versus"] == versus)
                 & (summary["quantity"].str.startswith(f"{name} {prefix}"))
             ]
             if len(rows):
@@ -129,10 +129,8 @@ def figure_set(comparison) -> Iterator[tuple[str, str, Any]]:
     if comparison.regimes is not None:
         names = list(comparison.regimes.names)
         own_c = {k: m.centroids for k, m in d["regime_own"].items()}
-        fitted = comparison.regimes.centroids
-        centroids = _stack({f"{comparison.fit_on} (fitted)": fitted, **own_c})
-        rows = [comparison.fit_on, *own_c]  # the fitted regimes counted on the fitting data
-        occ = _summary_values(summary, "regimes", "(fraction", rows, names)["value"]
+        centroids = _stack(own_c)  # the fitting dataset's own regimes are the fitted ones
+        occ = _summary_values(summary, "regimes", "(fraction", list(own_c), names)["value"]
         occ_da = xr.DataArray(
             occ,
             dims=("dataset", "regime"),
@@ -222,7 +220,7 @@ def _efolding_from_summary(summary, labels) -> xr.DataArray:
                 (summary["diagnostic"] == diag)
                 & (summary["quantity"] == quantity)
                 & (summary["dataset"] == label)
-                & (summary["versus"] == "")
+                & summary["versus"].isna()
             ]
             if len(rows):
                 values[i, j] = rows.iloc[0]["value"]

@@ -2,8 +2,8 @@
 
 Three kinds of row, told apart by ``versus``:
 
-- ``versus`` empty: the dataset's own estimate, with a 95% block-bootstrap percentile interval
-  (or, for EOF variance fractions, +-1.96 North et al. 1982 errors).
+- ``versus`` missing (None): the dataset's own estimate, with a 95% block-bootstrap percentile
+  interval (or, for EOF variance fractions, +-1.96 North et al. 1982 errors).
 - ``versus`` = the baseline label: the difference (dataset minus baseline), with a two-sided
   block-permutation p-value.
 - ``versus`` = the reference label: the reference's value, with the dataset's 2.5-97.5
@@ -67,7 +67,7 @@ class SummaryBuilder:
 
     # ------------------------------------------------------------------ rows
     def _row(
-        self, diagnostic, quantity, dataset, value, low=np.nan, high=np.nan, versus="", p=np.nan
+        self, diagnostic, quantity, dataset, value, low=np.nan, high=np.nan, versus=None, p=np.nan
     ) -> None:
         self.rows.append(
             {
@@ -195,7 +195,7 @@ class SummaryBuilder:
                 )
         if self.baseline in series:
             for k, y in series.items():
-                if k == self.baseline:
+                if k in (self.baseline, self.reference):  # the reference has its own rows
                     continue
                 try:
                     test = resampling.permutation_test(
@@ -279,7 +279,7 @@ class SummaryBuilder:
         if self.baseline not in jet:
             return
         for k, ds in jet.items():
-            if k == self.baseline:
+            if k in (self.baseline, self.reference):
                 continue
             test = resampling.ks_test(jet[self.baseline]["latitude"], ds["latitude"], **self.res)
             self._row(

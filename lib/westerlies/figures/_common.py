@@ -20,6 +20,7 @@ import numpy as np
 import xarray as xr
 from matplotlib.figure import Figure
 
+from .._files import publish_mode
 from ..errors import ConfigError, CoordinateError, InputError, InputWarning
 
 # Okabe and Ito (2008): blue, vermillion, bluish green, reddish purple, orange, sky blue, black,
@@ -273,6 +274,7 @@ def save(
             os.close(handle)
             try:
                 fig.savefig(temporary, format=fmt, dpi=dpi)
+                publish_mode(temporary)
                 os.replace(temporary, target)
             finally:
                 if os.path.exists(temporary):
