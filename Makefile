@@ -9,7 +9,7 @@ PY := $(VENV)/bin/python
 STAMP := $(VENV)/.installed
 DEMO_OUT ?= demo-out
 
-.PHONY: demo test lint bench clean
+.PHONY: demo test test-oldest lint bench clean
 
 $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
@@ -24,6 +24,13 @@ demo: $(STAMP)
 test: $(STAMP)
 	$(PY) -m pytest
 
+# The lowest supported versions (requirements-oldest.txt) in their own environment.
+test-oldest:
+	$(PYTHON) -m venv .venv-oldest
+	.venv-oldest/bin/python -m pip install --quiet -r requirements-oldest.txt
+	.venv-oldest/bin/python -m pip install --quiet --no-deps -e .
+	.venv-oldest/bin/python -m pytest
+
 lint: $(STAMP)
 	$(VENV)/bin/ruff check lib tests benchmarks
 	$(VENV)/bin/ruff format --check lib tests benchmarks
@@ -32,4 +39,4 @@ bench: $(STAMP)
 	for f in benchmarks/bench_*.py; do $(PY) $$f || exit 1; done
 
 clean:
-	rm -rf $(VENV) $(DEMO_OUT) .pytest_cache
+	rm -rf $(VENV) .venv-oldest $(DEMO_OUT) .pytest_cache

@@ -261,8 +261,10 @@ def test_jet_densities_bands_modes_bounds_and_units():
     assert sum(len(m.get_xdata()) for m in markers) == 3
     assert len(ax.collections) == 2  # one shaded band per dataset
     assert "degrees_north" in ax.get_xlabel() and "per degree" in ax.get_ylabel()
+    one = jet_densities(density, bounds=[45.0]).axes[0]  # a fit with two modes has one bound
+    assert [ln.get_xdata()[0] for ln in one.get_lines() if ln.get_linestyle() == "--"] == [45.0]
     with pytest.raises(InputError, match="bounds"):
-        jet_densities(density, bounds=[45.0])
+        jet_densities(density, bounds=["south"])
 
 
 def test_jet_latitude_speed_points_limited_and_units():

@@ -39,9 +39,12 @@ _LAZY: dict[str, str] = {
     "eof": "",
     "NAO": "nao",
     "eof_index": "nao",
+    "EOFIndex": "nao",
     # jet
     "lanczos_weights": "filters",
     "lowpass": "filters",
+    "lanczos_response": "filters",
+    "select_filtered_season": "filters",
     "jet_index": "jet",
     "jet_modes": "density",
     # regimes
@@ -50,6 +53,7 @@ _LAZY: dict[str, str] = {
     "persistence": "regimes",
     "episodes": "regimes",
     "transitions": "regimes",
+    "classifiability": "regimes",
     # memory and significance
     "acf": "timeseries",
     "ccf": "timeseries",
@@ -57,6 +61,11 @@ _LAZY: dict[str, str] = {
     "bootstrap_ci": "resampling",
     "permutation_test": "resampling",
     "fdr_mask": "resampling",
+    "reference_percentile": "resampling",
+    "ks_test": "resampling",
+    "map_difference_test": "resampling",
+    "map_ks_test": "resampling",
+    "BlockStatistic": "resampling",
     # main job
     "compare": "comparison",
     "Comparison": "comparison",

@@ -96,11 +96,18 @@ def climatology(da: xr.DataArray, *, smoothing_days: float = 15.0) -> xr.DataArr
     cal = timeaxis.calendar(da["time"]) if timeaxis.has_dates(da["time"]) else "none"
     if kind in ("daily", "subdaily"):
         slots, length = _slots(da["time"])
-        slot_da = xr.DataArray(slots, dims="time", name="slot")
-        sums = da.groupby(slot_da).sum(sample, skipna=True)
-        valid = da.notnull().groupby(slot_da).sum(sample)
+        present = np.unique(slots)
+        # A one-hot (time, slot) matrix turns the per-day-of-year sums into one product per
+        # chunk: far fewer dask tasks than a groupby over hundreds of slots.
+        onehot = xr.DataArray(
+            (slots[:, None] == present[None, :]).astype(float),
+            dims=("time", "slot"),
+            coords={"slot": present},
+        )
+        other = [d for d in sample if d != "time"]  # reduce members first: cheap product
+        sums = xr.dot(da.fillna(0.0).sum(other), onehot, dim="time")
+        valid = xr.dot(da.notnull().sum(other).astype(float), onehot, dim="time")
         means = sums / valid.where(valid > 0)
-        present = sums["slot"].values
         counts = np.zeros(length)
         np.add.at(counts, slots, 1.0)
         H = _local_quadratic_matrix(counts, smoothing_days)[:, present]

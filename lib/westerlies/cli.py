@@ -2,7 +2,7 @@
 
     westerlies check FILE... [--var NAME=VAR] [--member-dim DIM] [--daily-mean]
     westerlies demo-data OUT [--members N] [--winters N] [--seed S]
-    westerlies demo [--out DIR] [--members N] [--overwrite] [--quiet]
+    westerlies demo [--out DIR] [--members N] [--winters N] [--overwrite] [--quiet]
     westerlies run CONFIG.toml [--out DIR] [--overwrite] [--quiet]
 
 Exit status: 0 success, 1 the input is not usable or the job failed on bad input, 2 usage errors.
@@ -52,6 +52,7 @@ def _parser() -> argparse.ArgumentParser:
         help="output directory (default: westerlies-demo)",
     )
     demo.add_argument("--members", type=int, default=None, help="members per ensemble")
+    demo.add_argument("--winters", type=int, default=None, help="winters in the reference")
     demo.add_argument("--overwrite", action="store_true", help="replace an existing output")
     demo.add_argument("--quiet", action="store_true", help="no progress messages")
 
@@ -176,7 +177,7 @@ def _demo(args) -> int:
     with tempfile.TemporaryDirectory(prefix=".westerlies-demo-data-", dir=out.parent) as tmp:
         if not args.quiet:
             print("writing the demo scenario as netCDF files ...", flush=True)
-        sizes = {"members": args.members} if args.members else {}
+        sizes = {k: v for k, v in (("members", args.members), ("winters", args.winters)) if v}
         files = synthetic.write_scenario(Path(tmp), **sizes)
         config = {
             "datasets": {

@@ -28,7 +28,7 @@ from . import seasons, timeaxis
 from .anomalies import anomalies, climatology
 from .config import validate_options
 from .data import open_dataset
-from .errors import ConfigError, InputError, InputWarning
+from .errors import ConfigError, InputError, InputWarning, TimeStepError
 from .summary import SummaryBuilder
 
 __all__ = ["Comparison", "compare"]
@@ -193,7 +193,15 @@ def _prepare(
 
     smoothing = opts["anomalies"]["smoothing_days"]
     own_clim: dict[str, xr.DataArray] = {}
-    daily = timeaxis.time_kind(ds["time"]) == "daily"
+    kind = timeaxis.time_kind(ds["time"])
+    if kind == "subdaily":
+        raise TimeStepError.make(
+            f"dataset {label!r}: time axis",
+            f"sub-daily data (typical step {timeaxis.median_step_days(ds['time']):g} days)",
+            "daily, monthly or seasonal data",
+            "open it with daily='mean' (configuration: daily = \"mean\" under its dataset)",
+        )
+    daily = kind == "daily"
 
     def anoms_of(name: str) -> xr.DataArray | None:
         if name not in ds:

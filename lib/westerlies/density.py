@@ -335,33 +335,6 @@ class JetModes:
         }
         return ds
 
-    @classmethod
-    def fit(
-        cls,
-        latitudes: xr.DataArray,
-        *,
-        bandwidth: str | float = "silverman",
-        grid: Sequence[float] | None = None,
-        resolution: float = 0.1,
-        min_prominence: float = 0.02,
-        n_resamples: int = 1000,
-        confidence: float = 0.95,
-        test_interval: Sequence[float] = (0.01, 0.99),
-        seed: int | np.random.Generator | None = 0,
-    ) -> JetModes:
-        """Fit the density of `latitudes`; see `jet_modes` for the parameters."""
-        return jet_modes(
-            latitudes,
-            bandwidth=bandwidth,
-            grid=grid,
-            resolution=resolution,
-            min_prominence=min_prominence,
-            n_resamples=n_resamples,
-            confidence=confidence,
-            test_interval=test_interval,
-            seed=seed,
-        )
-
 
 # --- the public function ---------------------------------------------------------------------
 

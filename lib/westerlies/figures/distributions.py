@@ -155,8 +155,9 @@ def jet_densities(
         latitude dim may be named `latitude` or `lat` (degrees_north).
     band_low, band_high : DataArrays like `density`: the block-bootstrap interval, shaded.
     modes : dict label -> list of mode latitudes (degrees_north), marked by triangles on the curve.
-    bounds : two latitudes (degrees_north), the south/central and central/north category bounds
-        from the fitting dataset, drawn as dashed vertical lines.
+    bounds : latitudes (degrees_north) of the category bounds from the fitting dataset, drawn as
+        dashed vertical lines: usually two (south/central, central/north), one per density
+        minimum in general.
     colors : dataset label -> colour (a run's `dataset_colors`); default a fresh palette.
     title : figure title, or None.
 
@@ -203,14 +204,7 @@ def jet_densities(
                     zorder=5,
                 )
     if bounds is not None:
-        edges = _finite(bounds, "bounds")
-        if edges.size != 2:
-            raise InputError.make(
-                "bounds",
-                f"{edges.size} finite values",
-                "two latitudes (south/central, central/north)",
-                "pass the two category bounds in degrees_north",
-            )
+        edges = _finite(bounds, "bounds")  # two for three preferred positions; any number works
         for k, edge in enumerate(edges):
             line = ax.axvline(edge, color="0.35", linestyle="--", lw=1.0)
             if k == 0:
