@@ -128,3 +128,30 @@ def test_efolding_beyond_max_lag_warns_and_bad_options_raise():
         acf(da, -1)
     with pytest.raises(CoordinateError, match="extra dimensions"):
         acf(da.expand_dims(regime=[0, 1]), 3)
+
+
+def test_ccf_interval_matches_scipy_bootstrap_of_pearson_correlation():
+    # scipy.stats.bootstrap (paired, percentile) of scipy.stats.pearsonr: with one day per block
+    # the block bootstrap of the lag-0 CCF is the ordinary bootstrap of the correlation.
+    from scipy import stats
+
+    from westerlies.timeseries import ccf_interval
+
+    rng = np.random.default_rng(7)
+    x = rng.normal(size=400)
+    y = 0.5 * x + rng.normal(size=400)
+    a = xr.DataArray(x[:, None], dims=("member", "time"), name="a")
+    b = xr.DataArray(y[:, None], dims=("member", "time"), name="b")
+    ours = ccf_interval(a, b, max_lag=0, n_resamples=4000, seed=1)
+    assert float(ours["ccf"].sel(lag=0)) == pytest.approx(stats.pearsonr(x, y)[0], abs=1e-12)
+    ref = stats.bootstrap(
+        (x, y),
+        lambda u, v: stats.pearsonr(u, v)[0],
+        paired=True,
+        vectorized=False,
+        n_resamples=4000,
+        method="percentile",
+        random_state=2,
+    ).confidence_interval
+    assert float(ours["low"].sel(lag=0)) == pytest.approx(ref.low, abs=0.02)
+    assert float(ours["high"].sel(lag=0)) == pytest.approx(ref.high, abs=0.02)

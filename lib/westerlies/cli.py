@@ -3,7 +3,7 @@
     westerlies check FILE... [--var NAME=VAR] [--member-dim DIM] [--daily-mean]
     westerlies demo-data OUT [--members N] [--winters N] [--seed S]
     westerlies demo [--out DIR] [--members N] [--winters N] [--overwrite] [--quiet]
-    westerlies run CONFIG.toml [--out DIR] [--overwrite] [--quiet]
+    westerlies run CONFIG.toml [--out DIR] [--overwrite] [--quiet] [--workers N | --scheduler ADDR]
 
 Exit status: 0 success, 1 the input is not usable or the job failed on bad input, 2 usage errors.
 """
@@ -61,6 +61,19 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("--out", type=Path, default=None, help="output directory")
     run.add_argument("--overwrite", action="store_true", help="replace an existing output")
     run.add_argument("--quiet", action="store_true", help="no progress messages")
+    cluster = run.add_mutually_exclusive_group()
+    cluster.add_argument(
+        "--workers",
+        type=int,
+        default=None,
+        help="start a local dask.distributed cluster with N worker processes",
+    )
+    cluster.add_argument(
+        "--scheduler",
+        default=None,
+        metavar="ADDRESS",
+        help="use a running dask.distributed scheduler, e.g. tcp://host:8786",
+    )
     return parser
 
 
@@ -133,14 +146,43 @@ def _dask_progress(enabled: bool):
     return ProgressBar(minimum=2.0)
 
 
-def _compare_and_write(config: dict, out: Path, overwrite: bool, quiet: bool) -> int:
+def _cluster(workers: int | None, scheduler: str | None, say):
+    """A dask.distributed client for the run (closed at the end), or nothing."""
+    import contextlib
+
+    if workers is None and scheduler is None:
+        return contextlib.nullcontext()
+    from distributed import Client, LocalCluster
+
+    if scheduler is not None:
+        client = Client(scheduler)
+    else:
+        if workers < 1:
+            raise ConfigError.make("--workers", str(workers), "at least 1", "pass --workers 2")
+        # one thread per worker process: the numerical kernels are already vectorized
+        cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True)
+        client = Client(cluster)
+    if say:
+        say(f"dask cluster: {client.dashboard_link}")
+    return contextlib.closing(client)
+
+
+def _compare_and_write(
+    config: dict,
+    out: Path,
+    overwrite: bool,
+    quiet: bool,
+    workers: int | None = None,
+    scheduler: str | None = None,
+) -> int:
     from .comparison import compare
 
     _refuse_existing(out, overwrite)  # before any work: a refused run touches nothing
     options = dict(config["options"])
     resampling = options.pop("resampling")
     say = _progress(quiet)
-    with _dask_progress(not quiet):
+    distributed = workers is not None or scheduler is not None
+    with _cluster(workers, scheduler, say), _dask_progress(not quiet and not distributed):
         result = compare(
             config["datasets"],
             reference=config["reference"],
@@ -163,7 +205,9 @@ def _run(args) -> int:
 
     config = load_config(args.config)
     out = args.out or Path(args.config).parent / config["options"]["output"]["directory"]
-    return _compare_and_write(config, out, args.overwrite, args.quiet)
+    return _compare_and_write(
+        config, out, args.overwrite, args.quiet, workers=args.workers, scheduler=args.scheduler
+    )
 
 
 def _demo(args) -> int:

@@ -580,17 +580,19 @@ def _convert(da: xr.DataArray, name: str, label: str) -> xr.DataArray:
     order = [d for d in ("member", "time", "plev", "lat", "lon") if d in da.dims]
     da = da.transpose(*order)
     original = dict(da.attrs)
+    # float64 inside (lazily, chunk by chunk for dask): the same numbers whether the data are in
+    # memory or on a cluster, and sums over many days without single-precision round-off
+    da = da.astype("float64", copy=False)
     scale, offset = units.conversion(quantity, text)
     if (scale, offset) != (1.0, 0.0):
         da = da * scale + offset
-    da.attrs = original
     da.attrs = {
         "units": units.CANONICAL_UNITS[quantity],
         "standard_name": spec["standard_name"],
         "long_name": spec["long_name"],
         # kept through a second normalization, so opening a canonical dataset is idempotent
-        "source_variable": da.attrs.get("source_variable", str(da.name)),
-        "source_units": da.attrs.get("source_units", text),
+        "source_variable": original.get("source_variable", str(da.name)),
+        "source_units": original.get("source_units", text),
     }
     da.encoding = {}
     return da.rename(name)

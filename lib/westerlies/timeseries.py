@@ -34,7 +34,7 @@ from . import timeaxis
 from .errors import ConfigError, InputError, InputWarning
 from .resampling import _as_member_time, _pooled_values, _ratio, block_array
 
-__all__ = ["Autocorrelation", "EfoldingTime", "acf", "ccf", "efolding_time"]
+__all__ = ["Autocorrelation", "EfoldingTime", "acf", "ccf", "ccf_interval", "efolding_time"]
 
 Demean = Literal["global", "block"]
 
@@ -284,6 +284,86 @@ def efolding_time(
     )
 
 
+def _ccf_block_sums(la: np.ndarray, lb: np.ndarray, lags: np.ndarray, demean: Demean) -> np.ndarray:
+    """Additive per-block sums of a CCF: (n_blocks, 6 + 4 L).
+
+    Columns: [n_a, sum a, sum a^2, n_b, sum b, sum b^2], then [pairs, sum a_t, sum b_(t+k),
+    sum a_t b_(t+k)] for each lag k. With demean="block" each block is centred first.
+    """
+    if demean == "block":
+        la, lb = _centre_blocks(la), _centre_blocks(lb)
+    moments = [
+        np.isfinite(la).sum(1),
+        np.nansum(la, 1),
+        np.nansum(la**2, 1),
+        np.isfinite(lb).sum(1),
+        np.nansum(lb, 1),
+        np.nansum(lb**2, 1),
+    ]
+    pairs = [_lagged_sums(la, lb, int(k)) for k in lags]  # each (n_blocks, 4)
+    return np.concatenate([np.stack(moments, axis=1), *pairs], axis=1).astype(float)
+
+
+def _ccf_finish(sums: np.ndarray, n_lags: int, adjusted: bool) -> np.ndarray:
+    """The CCF (..., L) from summed block sums (..., 6 + 4 L): the global mean is removed."""
+    na, sa, saa, nb, sb, sbb = (sums[..., i] for i in range(6))
+    ma, mb = _ratio(sa, na), _ratio(sb, nb)
+    c0a, c0b = saa - na * ma**2, sbb - nb * mb**2
+    pairs = sums[..., 6:].reshape(*sums.shape[:-1], n_lags, 4)
+    expand = (Ellipsis, None)
+    return _correlation(
+        pairs, ma[expand], mb[expand], c0a[expand], c0b[expand], na[expand], nb[expand], adjusted
+    )
+
+
+def ccf_interval(
+    a: xr.DataArray,
+    b: xr.DataArray,
+    max_lag: int = 30,
+    *,
+    n_resamples: int = 1000,
+    confidence: float = 0.95,
+    seed: int | np.random.Generator = 0,
+    demean: Demean = "global",
+    adjusted: bool = True,
+) -> xr.Dataset:
+    """Block-bootstrap percentile interval of `ccf(a, b)` at every lag.
+
+    Whole blocks are drawn with replacement (the same blocks for both indices) and every
+    replicate is a weighted sum of the per-block sums (DESIGN.md principle 3).
+
+    Returns
+    -------
+    Dataset on `lag` with `ccf`, `low` and `high` (dimensionless).
+    """
+    from .resampling import _percentile, bootstrap_weights
+
+    value = ccf(a, b, max_lag, demean=demean, adjusted=adjusted)
+    lags = value["lag"].values
+    sums = _ccf_block_sums(
+        block_array(_as_member_time(a, "ccf_interval: first index")),
+        block_array(_as_member_time(b, "ccf_interval: second index")),
+        lags,
+        demean,
+    )
+    weights = bootstrap_weights(sums.shape[0], n_resamples, seed)
+    replicates = _ccf_finish(weights @ sums, lags.size, adjusted)
+    alpha = 1 - confidence
+    low, high = _percentile(replicates, [alpha / 2, 1 - alpha / 2])
+    method = (
+        f"block bootstrap percentile interval, confidence={confidence}, "
+        f"n_resamples={n_resamples}, blocks={sums.shape[0]}"
+    )
+    attrs = {"units": "1", "method": method}
+    return xr.Dataset(
+        {
+            "ccf": value,
+            "low": ("lag", low, {**attrs, "long_name": "lower end of the interval"}),
+            "high": ("lag", high, {**attrs, "long_name": "upper end of the interval"}),
+        }
+    )
+
+
 def ccf(
     a: xr.DataArray,
     b: xr.DataArray,
@@ -321,17 +401,9 @@ def ccf(
             "two indices on the same members and times",
             "align them first (xr.align)",
         )
-    la, lb = block_array(a), block_array(b)
-    if demean == "block":
-        la, lb = _centre_blocks(la), _centre_blocks(lb)
-        ma = mb = 0.0
-    else:
-        ma, mb = np.nanmean(la), np.nanmean(lb)
-    na, nb = np.isfinite(la).sum(), np.isfinite(lb).sum()
-    c0a, c0b = np.nansum((la - ma) ** 2), np.nansum((lb - mb) ** 2)
     lags = np.arange(-max_lag, max_lag + 1)
-    pairs = np.stack([_lagged_sums(la, lb, k).sum(0) for k in lags])  # (L, 4)
-    values = _correlation(pairs, ma, mb, c0a, c0b, na, nb, adjusted)
+    sums = _ccf_block_sums(block_array(a), block_array(b), lags, demean)
+    values = _ccf_finish(sums.sum(0), lags.size, adjusted)
     lag = xr.DataArray(
         lags,
         dims="lag",
