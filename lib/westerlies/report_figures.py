@@ -83,9 +83,7 @@ def figure_set(comparison) -> Iterator[tuple[str, str, Any]]:
     yield (
         "nao_index_distributions",
         "Distributions of the daily NAO index (units of the fitting dataset's standard deviation)",
-        figures.index_distributions({k: v for k, v in d["nao_index"].items()}, colors=colors)
-        if _accepts(figures.index_distributions, "colors")
-        else figures.index_distributions(dict(d["nao_index"])),
+        figures.index_distributions(dict(d["nao_index"]), colors=colors),
     )
 
     if comparison.jet_modes is not None:
@@ -108,6 +106,7 @@ def figure_set(comparison) -> Iterator[tuple[str, str, Any]]:
                 high,
                 modes=modes,
                 bounds=list(map(float, comparison.jet_modes.bounds)),
+                colors=colors,
             ),
         )
         jet = d["_jet_series"]
@@ -117,13 +116,16 @@ def figure_set(comparison) -> Iterator[tuple[str, str, Any]]:
             figures.jet_latitude_speed(
                 {k: v["latitude"].values.ravel() for k, v in jet.items()},
                 {k: v["speed"].values.ravel() for k, v in jet.items()},
+                colors=colors,
             ),
         )
         names = list(comparison.jet_modes.categories)
         yield (
             "jet_category_occupancy",
             "Occupancy of the jet position categories",
-            _occupancy_figure(figures, summary, "jet", labels, names, comparison.baseline, alpha),
+            _occupancy_figure(
+                figures, summary, "jet", labels, names, comparison.baseline, alpha, colors
+            ),
         )
 
     if comparison.regimes is not None:
@@ -147,7 +149,7 @@ def figure_set(comparison) -> Iterator[tuple[str, str, Any]]:
             "Regime occupancy with 95% block-bootstrap intervals; "
             "asterisks mark significant differences from the baseline",
             _occupancy_figure(
-                figures, summary, "regimes", labels, names, comparison.baseline, alpha
+                figures, summary, "regimes", labels, names, comparison.baseline, alpha, colors
             ),
         )
         from .regime_stats import episodes
@@ -158,7 +160,7 @@ def figure_set(comparison) -> Iterator[tuple[str, str, Any]]:
         yield (
             "regime_persistence",
             "Survival curves of regime episode lengths",
-            figures.persistence_survival(surv),
+            figures.persistence_survival(surv, colors=colors),
         )
 
     if "acf" in d:
@@ -167,7 +169,9 @@ def figure_set(comparison) -> Iterator[tuple[str, str, Any]]:
             "index_memory",
             "Autocorrelation functions of the daily indices with 95% "
             "block-bootstrap bands and e-folding times",
-            figures.memory_functions(d["acf"], d["acf_low"], d["acf_high"], efolding=eff),
+            figures.memory_functions(
+                d["acf"], d["acf_low"], d["acf_high"], efolding=eff, colors=colors
+            ),
         )
     if d.get("ccf"):
         c = d["ccf"]
@@ -175,7 +179,7 @@ def figure_set(comparison) -> Iterator[tuple[str, str, Any]]:
             "nao_sst_cross_correlation",
             "Cross-correlation of the NAO with the SST tripole index",
             figures.cross_correlation(
-                c["ccf"], c["low"], c["high"], title="NAO and SST tripole index"
+                c["ccf"], c["low"], c["high"], title="NAO and SST tripole index", colors=colors
             ),
         )
     yield (
@@ -186,13 +190,7 @@ def figure_set(comparison) -> Iterator[tuple[str, str, Any]]:
     )
 
 
-def _accepts(func, name: str) -> bool:
-    import inspect
-
-    return name in inspect.signature(func).parameters
-
-
-def _occupancy_figure(figures, summary, diagnostic, labels, names, baseline, alpha):
+def _occupancy_figure(figures, summary, diagnostic, labels, names, baseline, alpha, colors):
     est = _summary_values(summary, diagnostic, "(fraction", labels, names)
     test = _summary_values(summary, diagnostic, "(fraction", labels, names, versus=baseline)
     coords = {"dataset": labels, "regime": names}
@@ -203,7 +201,7 @@ def _occupancy_figure(figures, summary, diagnostic, labels, names, baseline, alp
 
     significant = xr.DataArray(test["p_value"] <= alpha, dims=dims, coords=coords)
     return figures.occupancy_bars(
-        da(est["value"]), da(est["ci_low"]), da(est["ci_high"]), significant
+        da(est["value"]), da(est["ci_low"]), da(est["ci_high"]), significant, colors=colors
     )
 
 
