@@ -124,7 +124,7 @@ def _describe(ds: xr.Dataset, report: CheckReport) -> None:
         add("calendar", timeaxis.calendar(time))
         add(
             "time",
-            f"{time.size} steps from {time.values[0]} to {time.values[-1]}, "
+            f"{time.size} steps from {_day(time.values[0])} to {_day(time.values[-1])}, "
             f"{kind} (typical step {timeaxis.median_step_days(time):g} days)",
         )
     else:
@@ -168,6 +168,13 @@ def _describe(ds: xr.Dataset, report: CheckReport) -> None:
             f"time: {kind} data serve the NAO; the jet, regimes and daily "
             "index memory need daily data"
         )
+
+
+def _day(t) -> str:
+    """A date as YYYY-MM-DD, for numpy and cftime dates alike."""
+    if isinstance(t, np.datetime64):
+        return str(np.datetime_as_string(t, unit="D"))
+    return f"{t.year:04d}-{t.month:02d}-{t.day:02d}"
 
 
 def _missing(name: str, da: xr.DataArray, report: CheckReport) -> None:

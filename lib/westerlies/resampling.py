@@ -541,11 +541,12 @@ def subsample_weights(n_blocks: int, n_draws: int, n_resamples: int, seed: Seed 
     if n_draws >= n_blocks:
         weights[:] = 1.0
     elif n_draws > 0:
-        # The n_draws smallest of n_blocks uniform keys: a uniformly random subset per row.
-        # (float64 keys: ties, which would break the row sums, have probability ~ n^2 2^-53.)
-        keys = rng.random((n_resamples, n_blocks))
-        kth = np.partition(keys, n_draws - 1, axis=1)[:, n_draws - 1 : n_draws]
-        weights = (keys <= kth).astype(float)
+        # The positions of the n_draws smallest of n_blocks uniform keys: a uniformly random
+        # subset per row. argpartition returns exactly n_draws distinct positions even when
+        # keys tie, so single-precision keys are safe (ties only reorder equal keys) and cheap.
+        keys = rng.random((n_resamples, n_blocks), dtype=np.float32)
+        chosen = np.argpartition(keys, n_draws - 1, axis=1)[:, :n_draws]
+        np.put_along_axis(weights, chosen, 1.0, axis=1)
     return weights
 
 
