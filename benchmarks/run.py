@@ -3,7 +3,8 @@
     .venv/bin/python benchmarks/run.py --workload small|large [--workdir DIR] [--workers N ...]
         [--keep] [--json OUT] [--timeout SECONDS] [--max-rss-gb GB]
 
-1. Writes the workload (`benchmarks/workloads.py`) as netCDF, one file per member, into the
+1. Writes the workload (`benchmarks/workloads.py`, in a measured subprocess) as netCDF, one
+   file per member, into the
    workdir (default: ``bench-data-WORKLOAD`` beside the repository), after checking the free
    disk space; a workdir already holding the same workload (its ``workload.json`` manifest) is
    reused, any other non-empty workdir is refused. small = 2 experiments x 100 members, large =
@@ -13,9 +14,10 @@
    (a) ``read``: the floor. Opens every file with xarray (one dask chunk per member file) and
        sums every variable.
    (b) ``suite``: ``westerlies run CONFIG --out DIR --overwrite --quiet`` with a generated TOML
-       configuration (DJF, 1000 resamples, seed 0; ``chunks = { time = 150 }`` so the data stay
-       dask-backed): once with dask's default threaded scheduler, then once per ``--workers N``
-       (a local dask.distributed cluster of N single-threaded worker processes).
+       configuration (DJF, 1000 resamples, seed 0; ``chunks = { member = 50, time = 150 }``
+       so the data stay dask-backed in chunks of 50 member files): once with dask's default
+       threaded scheduler, then once per ``--workers N`` (a local dask.distributed cluster of N
+       single-threaded worker processes).
    (c) ``plain`` (small workload only): the same numbers the way a scientist would write them:
        all Z500 loaded in memory, daily climatology by calendar day (Gaussian-smoothed), a full
        SVD through ``eofs.standard.Eof`` for the NAO and the regimes' PCs of every dataset,
@@ -48,6 +50,7 @@ import shutil
 import signal
 import subprocess
 import sys
+import tempfile
 import threading
 import time
 from dataclasses import asdict
@@ -58,6 +61,8 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 import workloads  # the sibling module, found through the path set above
 
 REPO = Path(__file__).resolve().parents[1]
+#: members per dask chunk in the suite's configuration (one file per member, grouped)
+MEMBER_CHUNK = 50
 LABELS = {"reference": "Gale reference", "control": "ctl-slab", "perturbed": "ohtx-plus"}
 N_RESAMPLES = 1000
 SEED = 0
@@ -194,11 +199,11 @@ chunks = {{ time = 151 }}
 
 [datasets."{LABELS["control"]}"]
 path = "{workdir / "control" / "member_*.nc"}"
-chunks = {{ time = 150 }}
+chunks = {{ member = {MEMBER_CHUNK}, time = 150 }}
 
 [datasets."{LABELS["perturbed"]}"]
 path = "{workdir / "perturbed" / "member_*.nc"}"
-chunks = {{ time = 150 }}
+chunks = {{ member = {MEMBER_CHUNK}, time = 150 }}
 
 [resampling]
 n_resamples = {N_RESAMPLES}
@@ -574,31 +579,35 @@ def run_benchmark(args: argparse.Namespace, reuse: bool) -> dict:
         "workdir": str(workdir),
         "steps": {},
     }
-    if reuse:
-        print(f"reusing the {workload.name} workload in {workdir}")
-    else:
-        workloads.check_disk(workdir, workload)
-        print(f"writing the {workload.name} workload into {workdir} ...", flush=True)
-        t0 = time.perf_counter()
-        workloads.generate(workdir, workload)
-        report["generation_s"] = round(time.perf_counter() - t0, 1)
-    report["input_bytes"] = workloads.size_on_disk(workdir, workload)
-    runs = workdir / "runs"
-    runs.mkdir(exist_ok=True)
     steps = report["steps"]
 
-    def internal(step: str) -> dict:
-        result = runs / f"{step}.json"
+    def internal(step: str, where: Path) -> dict:
+        result = where / f"{step}.json"
         result.unlink(missing_ok=True)
         print(f"step {step} ...", flush=True)
         m = measure(
-            _internal(step, args, result), runs / f"{step}.log", args.timeout, args.max_rss_gb
+            _internal(step, args, result), where / f"{step}.log", args.timeout, args.max_rss_gb
         )
         if result.exists():
             m["result"] = json.loads(result.read_text())
         return m
 
-    steps["read"] = internal("read")
+    if reuse:
+        print(f"reusing the {workload.name} workload in {workdir}")
+    else:
+        # in a subprocess too: its memory is measured, and this process stays small (a child's
+        # ru_maxrss starts from its parent's high-water mark at fork)
+        workloads.check_disk(workdir, workload)
+        with tempfile.TemporaryDirectory() as tmp:
+            steps["generate"] = internal("generate", Path(tmp))
+            steps["generate"]["log"] = None
+        if steps["generate"]["status"] != "ok":
+            raise SystemExit(f"benchmark: generation stopped ({steps['generate']['status']})")
+    report["input_bytes"] = workloads.size_on_disk(workdir, workload)
+    runs = workdir / "runs"
+    runs.mkdir(exist_ok=True)
+
+    steps["read"] = internal("read", runs)
     config = write_config(workdir, workload, runs / "bench.toml")
     workers_ok = has_option("--workers")
     report["workers_option"] = workers_ok
@@ -617,7 +626,7 @@ def run_benchmark(args: argparse.Namespace, reuse: bool) -> dict:
             break
     if workload.name == "small" and steps["suite"]["status"] == "ok":
         args.suite_out = runs / "out"
-        steps["plain"] = internal("plain")
+        steps["plain"] = internal("plain", runs)
     report["ratios"] = ratios(steps)
     return report
 
@@ -721,7 +730,7 @@ def _parser() -> argparse.ArgumentParser:
     parser.add_argument(
         "--max-rss-gb", type=float, default=16.0, help="stop a step whose processes exceed this"
     )
-    parser.add_argument("--step", choices=("read", "plain"), help=argparse.SUPPRESS)
+    parser.add_argument("--step", choices=("generate", "read", "plain"), help=argparse.SUPPRESS)
     parser.add_argument("--result", type=Path, help=argparse.SUPPRESS)
     parser.add_argument("--suite-out", type=Path, default=None, help=argparse.SUPPRESS)
     return parser
@@ -734,7 +743,10 @@ def main() -> int:
         args.workdir = REPO.parent / f"bench-data-{workload.name}"
     args.workdir = args.workdir.resolve()
     if args.step:  # internal: one measured step, in its own interpreter
-        if args.step == "read":
+        if args.step == "generate":
+            workloads.generate(args.workdir, workload)
+            result = {"bytes": workloads.size_on_disk(args.workdir, workload)}
+        elif args.step == "read":
             result = step_read(args.workdir, workload)
         else:
             result = step_plain(args.workdir, workload, args.suite_out)

@@ -207,14 +207,19 @@ def _prepare(
         if name not in ds:
             return None
         kw = {"smoothing_days": smoothing} if daily else {}
-        own_clim[name] = climatology(ds[name], **kw)
+        # computed now (it is small: days of the year x grid), so that the many later passes
+        # over dask-backed data read the field once each instead of re-deriving the climatology
+        own_clim[name] = climatology(ds[name], **kw).compute()
         base = clim.get(name) if clim else None
         a = anomalies(ds[name], climatology=base if base is not None else own_clim[name])
         return _quiet_season(a, season)
 
-    z_anoms = anoms_of("z500")
-    sst_anoms = anoms_of("sst")
-    z_season = _quiet_season(ds["z500"], season) if "z500" in ds else None
+    budget = opts["anomalies"]["persist_mb"] * 1e6
+    z_anoms = _kept(
+        _crop(anoms_of("z500"), opts["nao"]["domain"], opts["regimes"]["domain"]), budget
+    )
+    sst_anoms = _kept(_crop(anoms_of("sst"), opts["sst"]["domain"]), budget)
+    z_season = _kept(_quiet_season(ds["z500"], season), budget) if "z500" in ds else None
     jet = None
     if "u" in ds and daily:
         j = opts["jet"]
@@ -231,6 +236,26 @@ def _prepare(
             jet = select_filtered_season(index, season).load()
     prepared = Prepared(label, z_anoms, z_season, jet, sst_anoms, daily, sources)
     return prepared, own_clim
+
+
+def _crop(da: xr.DataArray | None, *domains) -> xr.DataArray | None:
+    """The smallest lat-lon box holding every domain (lat_min, lat_max, lon_min, lon_max)."""
+    if da is None:
+        return None
+    lat_min, lat_max = min(d[0] for d in domains), max(d[1] for d in domains)
+    lon_min, lon_max = min(d[2] for d in domains), max(d[3] for d in domains)
+    if any(d[2] > d[3] for d in domains):  # a domain across the date line: keep every longitude
+        return da.sel(lat=slice(lat_min, lat_max))
+    return da.sel(lat=slice(lat_min, lat_max), lon=slice(lon_min, lon_max))
+
+
+def _kept(da: xr.DataArray | None, budget_bytes: float) -> xr.DataArray | None:
+    """Dask-backed data under the budget are computed once and kept (in memory, or in the
+    workers' memory on a cluster); the diagnostics then pass over them many times without
+    reading the files again. Larger data stay lazy and are re-read in every pass."""
+    if da is None or not hasattr(da.data, "dask") or da.nbytes > budget_bytes:
+        return da
+    return da.persist()
 
 
 def _quiet_season(da: xr.DataArray, season: str) -> xr.DataArray:

@@ -31,7 +31,7 @@ DEFAULTS: dict[str, dict[str, Any]] = {
     "memory": {"max_lag": 30},
     # positive tripole index: warm SST off the North American east coast (common practice)
     "sst": {"domain": [0.0, 70.0, -80.0, 0.0], "positive_at": [40.0, -60.0]},
-    "anomalies": {"against": "own", "smoothing_days": 15.0},
+    "anomalies": {"against": "own", "smoothing_days": 15.0, "persist_mb": 1000},
     "resampling": {"n_resamples": 1000, "alpha": 0.05, "seed": 0, "fdr": "wilks"},
     "output": {"formats": ["png"], "dpi": 150, "directory": "westerlies-out"},
 }

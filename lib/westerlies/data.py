@@ -167,6 +167,9 @@ def _paths(source) -> list[Path]:
 
 
 def _open_one(path: Path, chunks) -> xr.Dataset:
+    """Open one file; with a mapping of chunks, only the dims the file has are chunked (the
+    canonical names, such as ``member`` for files concatenated later, may not be there yet)."""
+    by_dim = isinstance(chunks, Mapping)
     if not path.exists():
         raise InputError.make(
             f"file {str(path)!r}", "no such file", "an existing netCDF file", "check the path"
@@ -174,7 +177,8 @@ def _open_one(path: Path, chunks) -> xr.Dataset:
     try:
         with warnings.catch_warnings():
             warnings.filterwarnings("ignore", message="Ambiguous reference date string")
-            return xr.open_dataset(path, chunks=chunks)
+            ds = xr.open_dataset(path, chunks={} if by_dim else chunks)
+        return ds.chunk({k: v for k, v in chunks.items() if k in ds.dims}) if by_dim else ds
     except (OSError, ValueError) as err:
         raise InputError.make(
             f"file {str(path)!r}",
@@ -217,6 +221,10 @@ def _read(source, *, chunks, member_dim):
             "regrid or align the members before opening them together",
         ) from err
     merged = merged.assign_coords(member=np.arange(len(paths)))
+    if isinstance(chunks, Mapping) and "member" in chunks:
+        # one file per member gives one chunk per member; group them as asked, so reductions
+        # over the ensemble work on a few large chunks instead of thousands of small ones
+        merged = merged.chunk({"member": chunks["member"]})
     return merged, f"{len(paths)} files like {str(paths[0])!r}", paths
 
 
