@@ -321,3 +321,24 @@ def test_map_tests_calibrated_null_and_detect_planted_shift():
     assert np.all(ks.p_value.values[planted] < 0.01)
     with pytest.raises(CoordinateError, match="grid"):
         map_difference_test(x.isel(lon=0), y.isel(lon=0).isel(lat=0))
+
+
+def test_map_test_on_shared_block_sums_equals_the_direct_test():
+    # Same numbers from precomputed per-block sums (one pass per field shared between tests).
+    from westerlies.resampling import field_block_sums, map_difference_test
+
+    rng = np.random.default_rng(3)
+    dims = ("member", "time", "lat", "lon")
+    coords = {"lat": [10.0, 20.0, 30.0], "lon": [0.0, 5.0]}
+    x = xr.DataArray(rng.normal(size=(6, 20, 3, 2)), dims=dims, coords=coords)
+    y = xr.DataArray(rng.normal(size=(7, 20, 3, 2)) + 0.5, dims=dims, coords=coords)
+    direct = map_difference_test(x, y, n_resamples=199, seed=4)
+    shared = map_difference_test(field_block_sums(x), field_block_sums(y), n_resamples=199, seed=4)
+    xr.testing.assert_allclose(direct["difference"], shared["difference"])
+    np.testing.assert_array_equal(direct["p_value"].values, shared["p_value"].values)
+    # difference of means: numpy on the raw arrays
+    np.testing.assert_allclose(
+        direct["difference"].values, y.mean(("member", "time")) - x.mean(("member", "time"))
+    )
+    with pytest.raises(ConfigError, match="ttest"):
+        map_difference_test(field_block_sums(x), y, method="ttest")

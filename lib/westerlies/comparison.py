@@ -216,9 +216,10 @@ def _prepare(
 
     budget = opts["anomalies"]["persist_mb"] * 1e6
     z_anoms = _kept(
-        _crop(anoms_of("z500"), opts["nao"]["domain"], opts["regimes"]["domain"]), budget
+        _single(_crop(anoms_of("z500"), opts["nao"]["domain"], opts["regimes"]["domain"])),
+        budget,
     )
-    sst_anoms = _kept(_crop(anoms_of("sst"), opts["sst"]["domain"]), budget)
+    sst_anoms = _kept(_single(_crop(anoms_of("sst"), opts["sst"]["domain"])), budget)
     z_season = _kept(_quiet_season(ds["z500"], season), budget) if "z500" in ds else None
     jet = None
     if "u" in ds and daily:
@@ -247,6 +248,17 @@ def _crop(da: xr.DataArray | None, *domains) -> xr.DataArray | None:
     if any(d[2] > d[3] for d in domains):  # a domain across the date line: keep every longitude
         return da.sel(lat=slice(lat_min, lat_max))
     return da.sel(lat=slice(lat_min, lat_max), lon=slice(lon_min, lon_max))
+
+
+def _single(da: xr.DataArray | None) -> xr.DataArray | None:
+    """Season anomalies in single precision, in memory and on dask alike: they are the largest
+    arrays a comparison holds, and the EOF, projection and regime kernels accumulate in double
+    precision (anomalies of tens of metres keep ~1e-5 m resolution)."""
+    if da is None:
+        return None
+    out = da.astype("float32")
+    out.attrs = da.attrs
+    return out
 
 
 def _kept(da: xr.DataArray | None, budget_bytes: float) -> xr.DataArray | None:

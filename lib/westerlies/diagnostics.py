@@ -221,18 +221,29 @@ def _ccf(out, labels, max_lag, res) -> dict[str, xr.DataArray] | None:
 # --------------------------------------------------------------------------------- maps
 
 
-def _season_mean(z: xr.DataArray) -> xr.DataArray:
-    return z.mean(("member", "time"))
-
-
 def _maps(prepared, labels, baseline, ref_label, opts) -> xr.Dataset:
-    """Season-mean Z500 of each dataset, its bias and its response, with FDR masks."""
+    """Season-mean Z500 of each dataset, its bias and its response, with FDR masks.
+
+    Each dataset's field is reduced once to per-block sums at every grid point (on the first
+    dataset's grid); the season means and every map test are built from those sums.
+    """
     alpha = opts["resampling"]["alpha"]
     wilks = opts["resampling"]["fdr"] == "wilks"
     res = _res(opts)
-    means = {k: _season_mean(prepared[k].z_season) for k in labels}
-    grid = means[labels[0]]
-    ds = xr.Dataset({"z500_mean": _stack({k: v.reindex_like(grid) for k, v in means.items()})})
+    base = prepared[labels[0]].z_season
+    sums = {}
+    for k in labels:
+        z = prepared[k].z_season
+        same = all(np.array_equal(z[d].values, base[d].values) for d in ("lat", "lon"))
+        sums[k] = resampling.field_block_sums(z if same else z.interp_like(base))
+    grid = sums[labels[0]].template
+
+    def mean(f: resampling.FieldBlockSums) -> xr.DataArray:
+        with np.errstate(invalid="ignore", divide="ignore"):
+            values = f.sums.sum(0) / f.counts.sum(0)
+        return f.template.copy(data=values.reshape(f.template.shape))
+
+    ds = xr.Dataset({"z500_mean": _stack({k: mean(sums[k]) for k in labels})})
     ds["z500_mean"].attrs = {
         "units": "m",
         "long_name": "season-mean geopotential height at 500 hPa",
@@ -243,17 +254,7 @@ def _maps(prepared, labels, baseline, ref_label, opts) -> xr.Dataset:
         for k in labels:
             if k == versus or k in skip:
                 continue
-            x = prepared[versus].z_season
-            y = prepared[k].z_season
-            if not np.array_equal(x["lat"].values, y["lat"].values) or not np.array_equal(
-                x["lon"].values, y["lon"].values
-            ):
-                y = y.interp_like(x)
-            test = resampling.map_difference_test(
-                x,
-                y,
-                **res,  # per-block sums at each grid point come first: lazy-friendly
-            )
+            test = resampling.map_difference_test(sums[versus], sums[k], **res)
             diff[k] = test["difference"]
             pval[k] = test["p_value"]
             mask[k] = resampling.fdr_mask(test["p_value"], alpha=alpha, wilks=wilks)

@@ -55,6 +55,7 @@ from typing import Any, Literal, Protocol, runtime_checkable
 
 import numpy as np
 import xarray as xr
+from dask import compute as dask_compute
 
 from . import timeaxis
 from .errors import ConfigError, CoordinateError, InputError, TimeStepError
@@ -64,6 +65,7 @@ __all__ = [
     "BlockStatistic",
     "CategoryOccupancy",
     "CategoryPersistence",
+    "FieldBlockSums",
     "Mean",
     "Quantile",
     "StandardDeviation",
@@ -75,6 +77,7 @@ __all__ = [
     "bootstrap_ci",
     "bootstrap_weights",
     "fdr_mask",
+    "field_block_sums",
     "get_statistic",
     "ks_test",
     "map_difference_test",
@@ -1068,9 +1071,32 @@ def _field_block_sums(x: xr.DataArray, space: list[str]) -> tuple[np.ndarray, np
         sums = filled.sum("time").rename(member="block")
         counts = valid.sum("time").rename(member="block")
     n_points = int(np.prod([x.sizes[d] for d in space]))
+    # both reductions in one pass over the data (one read for dask-backed fields)
+    sums, counts = xr.align(*dask_compute(sums, counts))
     s = np.asarray(sums.transpose("block", *space).values, dtype=float).reshape(-1, n_points)
     n = np.asarray(counts.transpose("block", *space).values, dtype=float).reshape(-1, n_points)
     return s, n
+
+
+@dataclass(frozen=True)
+class FieldBlockSums:
+    """Per-block sums and counts of a field at every grid point, for `map_difference_test`.
+
+    Computing them once per dataset lets several map tests (bias against a reference, response
+    against a baseline) share one pass over the data.
+    """
+
+    sums: np.ndarray  # (n_blocks, n_points)
+    counts: np.ndarray  # (n_blocks, n_points)
+    template: xr.DataArray  # the grid (dims and coordinates)
+    units: str
+
+
+def field_block_sums(x: xr.DataArray) -> FieldBlockSums:
+    """Per-block sums and valid-day counts of a (member, time, grid...) field, in one pass."""
+    x, space = _as_field(x, "field_block_sums: field")
+    sums, counts = _field_block_sums(x, space)
+    return FieldBlockSums(sums, counts, _template(x, space), x.attrs.get("units", ""))
 
 
 def _template(x: xr.DataArray, space: list[str]) -> xr.DataArray:
@@ -1122,7 +1148,9 @@ def map_difference_test(
 
     Parameters
     ----------
-    x, y : DataArray (member, time, lat, lon) (any grid dims), same grid.
+    x, y : DataArray (member, time, lat, lon) (any grid dims), same grid; for the permutation
+        method also `FieldBlockSums` from `field_block_sums`, to share one pass over a field
+        between several tests.
     method : "permutation" relabels whole blocks, the same relabellings at every grid point
         (per-block sums per grid point; all replicates are one matrix product). "ttest" is the
         faster Welch t-test with the effective sample size of Bretherton et al. (1999), J.
@@ -1137,21 +1165,20 @@ def map_difference_test(
     Dataset on the grid with `difference` (mean y - mean x, units of the input) and `p_value`
     (two-sided; (b + 1) / (B + 1) for the permutation method).
     """
-    x, space = _as_field(x, "map_difference_test: first field")
-    y, space_y = _as_field(y, "map_difference_test: second field")
-    if space != space_y or any(x.sizes[d] != y.sizes[d] for d in space):
-        raise CoordinateError.make(
-            "map_difference_test",
-            f"grids {dict(x.sizes)} and {dict(y.sizes)}",
-            "the same grid for both fields",
-            "regrid one field to the other's grid",
-        )
-    template = _template(x, space)
-    units = x.attrs.get("units", "")
     if method == "permutation":
+        # per-block sums: given (FieldBlockSums, shared between tests) or computed here
+        fx = x if isinstance(x, FieldBlockSums) else field_block_sums(x)
+        fy = y if isinstance(y, FieldBlockSums) else field_block_sums(y)
+        if fx.template.shape != fy.template.shape:
+            raise CoordinateError.make(
+                "map_difference_test",
+                f"grids {dict(fx.template.sizes)} and {dict(fy.template.sizes)}",
+                "the same grid for both fields",
+                "regrid one field to the other's grid",
+            )
+        template, units = fx.template, fx.units
         n_resamples = _check_resamples(n_resamples)
-        sx, nx = _field_block_sums(x, space)
-        sy, ny = _field_block_sums(y, space)
+        sx, nx, sy, ny = fx.sums, fx.counts, fy.sums, fy.counts
         difference = _ratio(sy.sum(0), ny.sum(0)) - _ratio(sx.sum(0), nx.sum(0))
         sums, counts = np.concatenate([sx, sy]), np.concatenate([nx, ny])
         weights = permutation_weights(sx.shape[0], sy.shape[0], n_resamples, seed)
@@ -1169,6 +1196,25 @@ def map_difference_test(
         )
     elif method == "ttest":
         from scipy.stats import t as student_t
+
+        if isinstance(x, FieldBlockSums) or isinstance(y, FieldBlockSums):
+            raise ConfigError.make(
+                "map_difference_test",
+                "per-block sums with method='ttest'",
+                "the daily fields (the t-test needs lag-1 products)",
+                "pass the DataArrays, or use method='permutation'",
+            )
+        x, space = _as_field(x, "map_difference_test: first field")
+        y, space_y = _as_field(y, "map_difference_test: second field")
+        if space != space_y or any(x.sizes[d] != y.sizes[d] for d in space):
+            raise CoordinateError.make(
+                "map_difference_test",
+                f"grids {dict(x.sizes)} and {dict(y.sizes)}",
+                "the same grid for both fields",
+                "regrid one field to the other's grid",
+            )
+        template = _template(x, space)
+        units = x.attrs.get("units", "")
 
         n1, m1, v1, r1 = _lag1_moments(x, space)
         n2, m2, v2, r2 = _lag1_moments(y, space)
