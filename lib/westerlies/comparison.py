@@ -23,6 +23,7 @@ from typing import Any
 
 import pandas as pd
 import xarray as xr
+from dask import compute as dask_compute
 
 from . import seasons, timeaxis
 from .anomalies import anomalies, climatology
@@ -203,13 +204,17 @@ def _prepare(
         )
     daily = kind == "daily"
 
+    # The climatologies are computed now, together (one pass over the files for all fields;
+    # they are small: days of the year x grid), so that the many later passes over dask-backed
+    # data read each field once instead of re-deriving its climatology.
+    kw = {"smoothing_days": smoothing} if daily else {}
+    names = [n for n in ("z500", "sst") if n in ds]
+    computed = dask_compute(*[climatology(ds[n], **kw) for n in names])
+    own_clim.update(zip(names, computed, strict=True))
+
     def anoms_of(name: str) -> xr.DataArray | None:
         if name not in ds:
             return None
-        kw = {"smoothing_days": smoothing} if daily else {}
-        # computed now (it is small: days of the year x grid), so that the many later passes
-        # over dask-backed data read the field once each instead of re-deriving the climatology
-        own_clim[name] = climatology(ds[name], **kw).compute()
         base = clim.get(name) if clim else None
         a = anomalies(ds[name], climatology=base if base is not None else own_clim[name])
         return _quiet_season(a, season)
