@@ -11,21 +11,11 @@ from matplotlib.figure import Figure
 from matplotlib.patches import Patch, Rectangle
 
 from ..errors import InputError
+from ..summary import COLUMNS
 from ._common import DIVERGING_CMAP, new_figure, plain
 
 __all__ = ["scorecard"]
 
-COLUMNS = (
-    "diagnostic",
-    "quantity",
-    "dataset",
-    "value",
-    "ci_low",
-    "ci_high",
-    "versus",
-    "p_value",
-    "significant",
-)
 _CMAP = colormaps[DIVERGING_CMAP]
 # Cell tints: light ends of the diverging map, so the numbers stay legible on top.
 TINTS = {
