@@ -18,11 +18,12 @@ interrupted generation is never mistaken for a finished one.
 from __future__ import annotations
 
 import json
-import os
 import shutil
 import time
 from dataclasses import asdict, dataclass
 from pathlib import Path
+
+from westerlies._files import write_netcdf
 
 MANIFEST = "workload.json"
 EXPERIMENTS = ("control", "perturbed")
@@ -123,20 +124,6 @@ def check_disk(workdir: Path, workload: Workload, margin_bytes: int = 2 * 1024**
         )
 
 
-def _write(ds, path: Path) -> None:
-    """Write under a temporary name and rename when complete (no half-written file left)."""
-    path.parent.mkdir(parents=True, exist_ok=True)
-    temporary = path.with_name(f".{path.name}.{os.getpid()}.partial")
-    encoding = {name: {"_FillValue": None} for name in ds.coords if name != "time"}
-    encoding.update({name: {"dtype": "float32"} for name in ds.data_vars})
-    try:
-        ds.to_netcdf(temporary, engine="netcdf4", format="NETCDF4", encoding=encoding)
-        os.replace(temporary, path)
-    finally:
-        if temporary.exists():
-            temporary.unlink()
-
-
 def generate(workdir: Path, workload: Workload, say=print) -> dict[str, list[Path]]:
     """Write the workload's files into `workdir` (see the module docstring); returns the paths."""
     from westerlies.synthetic import scenario
@@ -149,7 +136,7 @@ def generate(workdir: Path, workload: Workload, say=print) -> dict[str, list[Pat
 
     if not targets["reference"][0].exists():
         reference = scenario(workload.seed, members=1, winters=workload.winters)["reference"]
-        _write(reference.drop_vars("sst"), targets["reference"][0])
+        write_netcdf(reference.drop_vars("sst"), targets["reference"][0])
         del reference
     for first in range(0, workload.members, workload.batch):
         count = min(workload.batch, workload.members - first)
@@ -162,7 +149,7 @@ def generate(workdir: Path, workload: Workload, say=print) -> dict[str, list[Pat
             for i in range(count):
                 member = ds.isel(realization=i, drop=True)
                 member.attrs = {**ds.attrs, "realization_index": first + i}
-                _write(member, targets[name][first + i])
+                write_netcdf(member, targets[name][first + i])
         del batch, ds
         say(
             f"  generated members {first}..{first + count - 1} of {workload.members} "

@@ -78,6 +78,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
+from ._files import write_netcdf
 from .errors import ConfigError
 
 __all__ = ["REGIME_NAMES", "ScenarioTruth", "scenario", "write_scenario"]
@@ -878,15 +879,6 @@ def _refuse_existing(path: Path) -> None:
 
 
 def _write_atomic(ds: xr.Dataset, path: Path) -> None:
-    """Write to a temporary name in the same directory, then rename into place."""
-    path.parent.mkdir(parents=True, exist_ok=True)
+    """Write as float32 netCDF under a temporary name in the same directory, then rename."""
     _refuse_existing(path)
-    temporary = path.with_name(f".{path.name}.{os.getpid()}.partial")
-    encoding = {name: {"_FillValue": None} for name in ds.coords if name != "time"}
-    encoding.update({name: {"dtype": "float32"} for name in ds.data_vars})
-    try:
-        ds.to_netcdf(temporary, engine="netcdf4", format="NETCDF4", encoding=encoding)
-        os.replace(temporary, path)
-    finally:
-        if temporary.exists():
-            temporary.unlink()
+    write_netcdf(ds, path)
