@@ -296,20 +296,12 @@ def _common(datasets, names, min_length) -> tuple[tuple[str, ...], bool]:
 
 
 @dataclass(frozen=True)
-class OccupancyStatistic:
-    """Occupancy as a block statistic: `per_block` gives days per regime, (n_blocks, k).
-
-    `finish(sums)` turns summed counts (..., k) into fractions (..., k) on any leading shape, so
-    all replicates W @ S finish at once. `prepare(*datasets)` fixes the regimes (and whether the
-    no-regime class is counted) across all datasets compared.
-    """
+class _RegimeStatistic:
+    """What the regime block statistics share: the regimes compared and their coordinates."""
 
     names: tuple[str, ...] | None = None
     min_length: int | None = None
     no_regime: bool = False
-    name: str = "occupancy"
-    long_name: str = "fraction of days in each regime"
-    units: str = "1"
     dim: str = "regime"
 
     @property
@@ -318,9 +310,24 @@ class OccupancyStatistic:
             return None
         return _Categories(self.names, self.no_regime).all_names
 
-    def prepare(self, *datasets: xr.DataArray) -> OccupancyStatistic:
+    def prepare(self, *datasets: xr.DataArray):
+        """A copy with the regimes (and the no-regime class) fixed across all datasets."""
         names, has_none = _common(datasets, self.names, self.min_length)
         return replace(self, names=names, no_regime=self.no_regime or has_none)
+
+
+@dataclass(frozen=True)
+class OccupancyStatistic(_RegimeStatistic):
+    """Occupancy as a block statistic: `per_block` gives days per regime, (n_blocks, k).
+
+    `finish(sums)` turns summed counts (..., k) into fractions (..., k) on any leading shape, so
+    all replicates W @ S finish at once. `prepare(*datasets)` fixes the regimes (and whether the
+    no-regime class is counted) across all datasets compared.
+    """
+
+    name: str = "occupancy"
+    long_name: str = "fraction of days in each regime"
+    units: str = "1"
 
     def per_block(self, x: xr.DataArray) -> np.ndarray:
         cats, a = _prepare(x, self.names, self.min_length, self.no_regime)
@@ -332,31 +339,17 @@ class OccupancyStatistic:
 
 
 @dataclass(frozen=True)
-class PersistenceStatistic:
+class PersistenceStatistic(_RegimeStatistic):
     """Persistence as a block statistic: per block [episodes per regime | their days].
 
     `per_block` gives (n_blocks, 2k); `finish(sums)` gives the mean episode length (..., k) in
     days, NaN for a regime with no episode. `edge` and `min_length` as in `persistence`.
     """
 
-    names: tuple[str, ...] | None = None
     edge: Edge = "keep"
-    min_length: int | None = None
-    no_regime: bool = False
     name: str = "persistence"
     long_name: str = "mean regime episode length"
     units: str = "days"
-    dim: str = "regime"
-
-    @property
-    def coords(self) -> list[str] | None:
-        if self.names is None:
-            return None
-        return _Categories(self.names, self.no_regime).all_names
-
-    def prepare(self, *datasets: xr.DataArray) -> PersistenceStatistic:
-        names, has_none = _common(datasets, self.names, self.min_length)
-        return replace(self, names=names, no_regime=self.no_regime or has_none)
 
     def per_block(self, x: xr.DataArray) -> np.ndarray:
         _check_edge(self.edge)
@@ -436,7 +429,7 @@ def occupancy(
     one over regimes (the no-regime class included when present).
     """
     cats, a = _prepare(labels, _names_tuple(names), min_length)
-    stat = OccupancyStatistic(cats.names, min_length, cats.no_regime)
+    stat = OccupancyStatistic(names=cats.names, min_length=min_length, no_regime=cats.no_regime)
     value = stat.finish(_day_counts(a, cats.size).sum(axis=0))
     return xr.DataArray(
         value,
@@ -474,7 +467,9 @@ def persistence(
     """
     _check_edge(edge)
     cats, a = _prepare(labels, _names_tuple(names), min_length)
-    stat = PersistenceStatistic(cats.names, edge, min_length, cats.no_regime)
+    stat = PersistenceStatistic(
+        names=cats.names, min_length=min_length, no_regime=cats.no_regime, edge=edge
+    )
     value = stat.finish(_episode_sums(a, cats.size, edge).sum(axis=0))
     return xr.DataArray(
         value,
