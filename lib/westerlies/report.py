@@ -204,7 +204,7 @@ def _format(value: Any) -> str:
             return ""
         return f"{float(value):.3g}"
     if isinstance(value, (bool, np.bool_)):
-        return "yes" if value else ""
+        return "yes" if value else "no"
     return "" if value is None else str(value)
 
 
