@@ -213,3 +213,25 @@ def test_safe_names_are_unique():
     names = [safe_name(x, taken) for x in ["a/b", "a b", "a_b", "", "1x"]]
     assert len(set(names)) == 5
     assert all(np.all([c.isalnum() or c in "_-" for c in n]) for n in names)
+
+
+def test_one_value_per_winter_reference(tmp_path):
+    # The eofs sample (NCEP/NCAR DJF-mean Z500, Kalnay et al. 1996) as the reference: it serves
+    # the NAO and the bias maps; the daily diagnostics are fitted on the baseline instead.
+    import eofs.examples
+
+    sc = wl.synthetic.scenario(seed=5, members=6, winters=2)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        result = wl.compare(
+            {"ctl": sc["control"], "exp": sc["perturbed"]},
+            reference=eofs.examples.example_data_path("hgt_djf.nc"),
+            n_resamples=99,
+            **FAST,
+        )
+    assert result.fit_on == "reference" and result.details["daily_fit_on"] == "ctl"
+    assert "jet_latitude" not in result.indices["reference"]
+    assert float(result.indices["reference"]["nao"].std()) == pytest.approx(1.0, rel=0.02)
+    assert result.maps["bias"].sel(dataset="ctl").notnull().any()
+    out = result.write(tmp_path / "set")
+    assert (out / "figures" / "z500_bias.png").exists()

@@ -235,7 +235,8 @@ def _maps(prepared, labels, baseline, ref_label, opts) -> xr.Dataset:
     for k in labels:
         z = prepared[k].z_season
         same = all(np.array_equal(z[d].values, base[d].values) for d in ("lat", "lon"))
-        sums[k] = resampling.field_block_sums(z if same else z.interp_like(base))
+        on_base = z if same else z.interp(lat=base["lat"], lon=base["lon"])  # grid only
+        sums[k] = resampling.field_block_sums(on_base)
     grid = sums[labels[0]].template
 
     def mean(f: resampling.FieldBlockSums) -> xr.DataArray:

@@ -164,7 +164,7 @@ def figure_set(comparison) -> Iterator[tuple[str, str, Any]]:
         )
 
     if "acf" in d:
-        eff = _efolding_from_summary(summary, labels)
+        eff = _efolding_from_summary(summary, [str(v) for v in d["acf"]["dataset"].values])
         yield (
             "index_memory",
             "Autocorrelation functions of the daily indices with 95% "
