@@ -59,6 +59,12 @@ def _type_error(key: str, value: Any, expected: str) -> ConfigError:
     )
 
 
+def _unknown(where: str, allowed, what: str = "key") -> ConfigError:
+    return ConfigError.make(
+        where, f"an unknown {what}", f"one of {sorted(allowed)}", f"correct or remove the {what}"
+    )
+
+
 def _check_value(key: str, value: Any, default: Any) -> Any:
     if isinstance(default, bool):
         if not isinstance(value, bool):
@@ -99,22 +105,12 @@ def validate_options(options: dict[str, Any]) -> dict[str, dict[str, Any]]:
     merged = copy.deepcopy(DEFAULTS)
     for group, values in options.items():
         if group not in DEFAULTS:
-            raise ConfigError.make(
-                f"configuration section {group!r}",
-                "an unknown section",
-                f"one of {sorted(DEFAULTS)}",
-                "correct or remove the section",
-            )
+            raise _unknown(f"configuration section {group!r}", DEFAULTS, "section")
         if not isinstance(values, dict):
             raise _type_error(group, values, "a table of keys")
         for key, value in values.items():
             if key not in DEFAULTS[group]:
-                raise ConfigError.make(
-                    f"configuration key '{group}.{key}'",
-                    "an unknown key",
-                    f"one of {sorted(DEFAULTS[group])}",
-                    "correct or remove the key",
-                )
+                raise _unknown(f"configuration key '{group}.{key}'", DEFAULTS[group])
             value = _check_value(f"{group}.{key}", value, DEFAULTS[group][key])
             choices = _CHOICES.get((group, key))
             if choices and value not in choices:
@@ -151,12 +147,7 @@ def load_config(path: str | Path) -> dict[str, Any]:
     top = {k: v for k, v in raw.items() if k not in DEFAULTS}
     for key, value in top.items():
         if key not in _TOP_KEYS:
-            raise ConfigError.make(
-                f"configuration key {key!r}",
-                "an unknown key",
-                f"one of {sorted([*_TOP_KEYS, *DEFAULTS])}",
-                "correct or remove the key",
-            )
+            raise _unknown(f"configuration key {key!r}", [*_TOP_KEYS, *DEFAULTS])
         if not isinstance(value, _TOP_KEYS[key]):
             raise _type_error(key, value, "a string" if key != "datasets" else "a table")
     datasets = {}
@@ -170,12 +161,7 @@ def load_config(path: str | Path) -> dict[str, Any]:
             )
         for key, value in entry.items():
             if key not in _DATASET_KEYS:
-                raise ConfigError.make(
-                    f"configuration key 'datasets.{label}.{key}'",
-                    "an unknown key",
-                    f"one of {sorted(_DATASET_KEYS)}",
-                    "correct or remove the key",
-                )
+                raise _unknown(f"configuration key 'datasets.{label}.{key}'", _DATASET_KEYS)
             if not isinstance(value, _DATASET_KEYS[key]):
                 raise _type_error(f"datasets.{label}.{key}", value, "see the README")
         entry = dict(entry)
