@@ -30,6 +30,7 @@ import itertools
 import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass
+from dataclasses import replace as replace_dataclass
 
 import numpy as np
 import xarray as xr
@@ -38,7 +39,7 @@ from scipy import fft, signal
 from . import seasons
 from .errors import ConfigError, InputError, InputWarning, MissingValueError
 
-__all__ = ["JetModes", "hall_york_lambda", "jet_modes", "silverman_bandwidth"]
+__all__ = ["JetModes", "ModeLatitudes", "hall_york_lambda", "jet_modes", "silverman_bandwidth"]
 
 #: Local maxima below this fraction of the row maximum are FFT round-off, not modes.
 _TINY = 1e-9
@@ -156,6 +157,76 @@ def _find_modes(dens: np.ndarray, min_prominence: float) -> np.ndarray:
     """Indices of local maxima whose prominence is at least `min_prominence` x the maximum."""
     peaks, _ = signal.find_peaks(dens, prominence=min_prominence * dens.max())
     return peaks
+
+
+def _basin_modes(
+    dens: np.ndarray, centres: np.ndarray, edges: np.ndarray, min_prominence: float
+) -> np.ndarray:
+    """Per row: the latitude of the highest qualifying peak in each basin between `edges`."""
+    out = np.full((dens.shape[0], edges.size - 1), np.nan)
+    for r in range(dens.shape[0]):
+        best = np.full(edges.size - 1, -np.inf)
+        for i in _find_modes(dens[r], min_prominence):
+            pos, value = _refine(centres, dens[r], i)
+            m = int(np.searchsorted(edges, pos) - 1)
+            if value > best[m]:
+                best[m], out[r, m] = value, pos
+    return out
+
+
+@dataclass(frozen=True)
+class ModeLatitudes:
+    """Block statistic (`westerlies.resampling` protocol): the latitudes of the density's modes.
+
+    Sums per block are linear-binned histograms of the block's jet latitudes on a common fine
+    grid (set by `prepare` from all datasets compared), so a replicate's density is one smoothing
+    of W @ H. In each replicate, mode k is the highest qualifying peak (prominence rule of
+    `jet_modes`) between the fitted category bounds on either side; NaN where a basin has none.
+    Make one from a fit with `JetModes.mode_statistic()`: same bandwidth, bounds and rule.
+    """
+
+    bounds: tuple[float, ...]
+    bandwidth: float
+    resolution: float = 0.1
+    min_prominence: float = 0.02
+    start: int | None = None
+    n_bins: int | None = None
+    name: str = "mode_latitude"
+    long_name: str = "latitude of each jet density mode"
+    units: str = "degrees_north"
+    dim: str = "mode"
+
+    @property
+    def coords(self) -> tuple[int, ...]:
+        return tuple(range(1, len(self.bounds) + 2))
+
+    def prepare(self, *datasets: xr.DataArray) -> ModeLatitudes:
+        values = np.concatenate([np.ravel(np.asarray(d.values, dtype=float)) for d in datasets])
+        values = values[np.isfinite(values)]
+        pad = 6 * self.bandwidth
+        start = int(np.floor((values.min() - pad) / self.resolution))
+        stop = int(np.ceil((values.max() + pad) / self.resolution))
+        return replace_dataclass(self, start=start, n_bins=stop - start + 1)
+
+    def per_block(self, x: xr.DataArray) -> np.ndarray:
+        from .resampling import block_array
+
+        rows = block_array(x)
+        out = np.zeros((rows.shape[0], self.n_bins))
+        for b, row in enumerate(rows):
+            row = row[np.isfinite(row)]
+            if row.size:
+                out[b] = _linear_bins(row, self.start, self.resolution, self.n_bins)
+        return out
+
+    def finish(self, sums: np.ndarray) -> np.ndarray:
+        sums = np.asarray(sums, dtype=float)
+        flat = sums.reshape(-1, self.n_bins)
+        dens = _smooth(flat, self.bandwidth, self.resolution)
+        centres = (self.start + np.arange(self.n_bins)) * self.resolution
+        edges = np.concatenate([[-np.inf], self.bounds, [np.inf]])
+        modes = _basin_modes(dens, centres, edges, self.min_prominence)
+        return modes.reshape(*sums.shape[:-1], edges.size - 1)
 
 
 # --- input handling --------------------------------------------------------------------------
@@ -303,6 +374,15 @@ class JetModes:
             coords={"category": list(self.categories)},
             name="occupancy",
             attrs={"long_name": "jet position occupancy", "units": "1", **attrs},
+        )
+
+    def mode_statistic(self) -> ModeLatitudes:
+        """The mode latitudes as a block statistic on this fit's bandwidth, bounds and rule, for
+        `bootstrap_ci` and `permutation_test` (e.g. the shift of each mode between datasets)."""
+        return ModeLatitudes(
+            tuple(map(float, self.bounds)),
+            float(self.bandwidth),
+            min_prominence=self.min_prominence,
         )
 
     def three_modes_supported(self, alpha: float = 0.05) -> bool:
@@ -514,14 +594,7 @@ def jet_modes(
         replicate = _smooth(weights @ block_counts, h, resolution)
         band = np.quantile(replicate, [tail, 1 - tail], axis=0)
         edges = np.concatenate([[-np.inf], minima_pos, [np.inf]])
-        found = np.full((n_resamples, len(peaks)), np.nan)
-        for r in range(n_resamples):
-            best = np.full(len(peaks), -np.inf)
-            for i in _find_modes(replicate[r], min_prominence):
-                pos, value = _refine(centres, replicate[r], i)
-                m = int(np.searchsorted(edges, pos) - 1)  # the fitted mode's basin
-                if value > best[m]:
-                    best[m], found[r, m] = value, pos
+        found = _basin_modes(replicate, centres, edges, min_prominence)  # per fitted basin
         support = np.mean(np.isfinite(found), axis=0)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN columns stay NaN

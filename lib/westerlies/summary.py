@@ -273,6 +273,31 @@ class SummaryBuilder:
                     test["critical_bandwidth"],
                     p=float(test["p_value"]),
                 )
+        # Shift of each mode from the baseline, in the fitting dataset's basins (block permutation)
+        fitted, jet = self.results.get("jet_modes"), self.results.get("_jet_series") or {}
+        if fitted is None or self.baseline not in jet:
+            return
+        stat = fitted.mode_statistic()
+        for k, ds in jet.items():
+            if k in (self.baseline, self.reference):
+                continue
+            try:
+                test = resampling.permutation_test(
+                    jet[self.baseline]["latitude"], ds["latitude"], stat, **self.res
+                )
+            except InputError:
+                continue
+            for i, (diff, p) in enumerate(
+                zip(test["statistic"].values, test["p_value"].values, strict=True)
+            ):
+                self._row(
+                    "jet",
+                    f"mode {i + 1} latitude (degrees_north)",
+                    k,
+                    diff,
+                    versus=self.baseline,
+                    p=p,
+                )
 
     def _jet_distribution(self) -> None:
         jet = self.results.get("_jet_series") or {}
