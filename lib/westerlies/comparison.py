@@ -34,8 +34,6 @@ from .summary import SummaryBuilder
 
 __all__ = ["Comparison", "compare"]
 
-INDEX_NAMES = ("nao", "jet_latitude", "jet_speed")
-
 
 @dataclass
 class Prepared:
@@ -405,9 +403,3 @@ def compare(
         sources={k: v.sources for k, v in prepared.items()},
         timings=steps.timings,
     )
-
-
-def resample_kwargs(opts: dict) -> dict:
-    """n_resamples and seed of the resampling options, for the engine's functions."""
-    res = opts["resampling"]
-    return {"n_resamples": res["n_resamples"], "seed": res["seed"]}

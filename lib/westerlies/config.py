@@ -13,7 +13,7 @@ from typing import Any
 
 from .errors import ConfigError
 
-__all__ = ["DEFAULTS", "load_config", "validate_options"]
+__all__ = ["DEFAULTS", "load_config", "resampling_keywords", "validate_options"]
 
 _NUMBER = (int, float)
 
@@ -122,6 +122,11 @@ def validate_options(options: dict[str, Any]) -> dict[str, dict[str, Any]]:
     if res["n_resamples"] < 99:
         raise _type_error("resampling.n_resamples", res["n_resamples"], "at least 99")
     return merged
+
+
+def resampling_keywords(options: dict[str, dict[str, Any]]) -> dict[str, Any]:
+    """``n_resamples`` and ``seed`` of validated options, as the resampling functions take them."""
+    return {k: options["resampling"][k] for k in ("n_resamples", "seed")}
 
 
 def load_config(path: str | Path) -> dict[str, Any]:

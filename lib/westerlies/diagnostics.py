@@ -13,6 +13,7 @@ import numpy as np
 import xarray as xr
 
 from . import resampling
+from .config import resampling_keywords
 from .errors import InputWarning
 from .timeseries import Autocorrelation, acf, ccf_interval
 
@@ -20,16 +21,12 @@ MEMORY_INDICES = ("nao", "jet_latitude", "jet_speed")
 _FDR_TEXT = {True: "alpha_FDR = 2 alpha (Wilks 2016)", False: "plain Benjamini-Hochberg"}
 
 
-def _res(opts: dict) -> dict:
-    return {
-        "n_resamples": opts["resampling"]["n_resamples"],
-        "seed": opts["resampling"]["seed"],
-    }
-
-
-def _stack(values: dict[str, xr.DataArray], dim: str = "dataset") -> xr.DataArray:
+def stack(values: dict[str, xr.DataArray], dim: str = "dataset") -> xr.DataArray:
+    """One array per dataset label, stacked along `dim` (outer join of the other coordinates)."""
     labels = list(values)
-    out = xr.concat([values[k] for k in labels], dim=dim, coords="minimal", compat="override")
+    out = xr.concat(
+        [values[k] for k in labels], dim=dim, coords="minimal", compat="override", join="outer"
+    )
     return out.assign_coords({dim: labels})
 
 
@@ -79,7 +76,7 @@ def _jet(prepared, labels, fit_on, opts, out) -> None:
     out["jet_labels"] = have
     if fit_on not in have:
         return
-    res = _res(opts)
+    res = resampling_keywords(opts)
     own = {}
     for k in have:
         with warnings.catch_warnings():
@@ -163,7 +160,7 @@ def _series(out, label: str, name: str) -> xr.DataArray | None:
 def _memory(prepared, labels, opts, out) -> None:
     out["_jet_series"] = {k: prepared[k].jet for k in labels if prepared[k].jet is not None}
     max_lag = opts["memory"]["max_lag"]
-    res = _res(opts)
+    res = resampling_keywords(opts)
     curves, lows, highs = {}, {}, {}
     for k in labels:
         if not prepared[k].daily:
@@ -190,9 +187,9 @@ def _memory(prepared, labels, opts, out) -> None:
     if curves:
         lag = {"lag": np.arange(max_lag + 1)}
         attrs = {"units": "1", "long_name": "autocorrelation"}
-        out["acf"] = _stack(curves).assign_coords(lag).assign_attrs(attrs)
-        out["acf_low"] = _stack(lows).assign_coords(lag).assign_attrs(attrs)
-        out["acf_high"] = _stack(highs).assign_coords(lag).assign_attrs(attrs)
+        out["acf"] = stack(curves).assign_coords(lag).assign_attrs(attrs)
+        out["acf_low"] = stack(lows).assign_coords(lag).assign_attrs(attrs)
+        out["acf_high"] = stack(highs).assign_coords(lag).assign_attrs(attrs)
         out["acf"]["lag"].attrs = {"units": "days", "long_name": "lag"}
     out["ccf"] = _ccf(out, labels, max_lag, res)
 
@@ -212,9 +209,9 @@ def _ccf(out, labels, max_lag, res) -> dict[str, xr.DataArray] | None:
         return None
     conv = "positive lag: NAO leads the SST index"
     return {
-        "ccf": _stack(curves).assign_attrs(lag_convention=conv, units="1"),
-        "low": _stack(lows),
-        "high": _stack(highs),
+        "ccf": stack(curves).assign_attrs(lag_convention=conv, units="1"),
+        "low": stack(lows),
+        "high": stack(highs),
     }
 
 
@@ -229,7 +226,7 @@ def _maps(prepared, labels, baseline, ref_label, opts) -> xr.Dataset:
     """
     alpha = opts["resampling"]["alpha"]
     wilks = opts["resampling"]["fdr"] == "wilks"
-    res = _res(opts)
+    res = resampling_keywords(opts)
     base = prepared[labels[0]].z_season
     sums = {}
     for k in labels:
@@ -244,7 +241,7 @@ def _maps(prepared, labels, baseline, ref_label, opts) -> xr.Dataset:
             values = f.sums.sum(0) / f.counts.sum(0)
         return f.template.copy(data=values.reshape(f.template.shape))
 
-    ds = xr.Dataset({"z500_mean": _stack({k: mean(sums[k]) for k in labels})})
+    ds = xr.Dataset({"z500_mean": stack({k: mean(sums[k]) for k in labels})})
     ds["z500_mean"].attrs = {
         "units": "m",
         "long_name": "season-mean geopotential height at 500 hPa",
@@ -262,14 +259,14 @@ def _maps(prepared, labels, baseline, ref_label, opts) -> xr.Dataset:
         if not diff:
             return
         ds[f"{kind}"] = (
-            _stack(diff)
+            stack(diff)
             .reindex_like(grid)
             .assign_attrs(
                 units="m", long_name=f"Z500 {kind} (dataset minus {versus})", versus=versus
             )
         )
-        ds[f"{kind}_p_value"] = _stack(pval).reindex_like(grid).assign_attrs(units="1")
-        ds[f"{kind}_significant"] = _stack(mask).reindex_like(grid).astype(bool)
+        ds[f"{kind}_p_value"] = stack(pval).reindex_like(grid).assign_attrs(units="1")
+        ds[f"{kind}_significant"] = stack(mask).reindex_like(grid).astype(bool)
         ds[f"{kind}_significant"].attrs = {
             "long_name": "significant after Benjamini-Hochberg FDR control",
             "method": f"alpha_global={alpha}, " + _FDR_TEXT[wilks],

@@ -8,13 +8,7 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-
-def _stack(values: dict[str, xr.DataArray], dim: str = "dataset") -> xr.DataArray:
-    labels = list(values)
-    out = xr.concat(
-        [values[k] for k in labels], dim=dim, coords="minimal", compat="override", join="outer"
-    )
-    return out.assign_coords({dim: labels})
+from .diagnostics import stack
 
 
 def _summary_values(summary, diagnostic: str, prefix: str, labels, names, versus=None):
@@ -59,7 +53,7 @@ def figure_set(comparison) -> Iterator[tuple[str, str, Any]]:
         dims="dataset",
         coords={"dataset": list(own)},
     )
-    patterns = _stack(own).assign_attrs(units="m per unit index")
+    patterns = stack(own).assign_attrs(units="m per unit index")
     yield (
         "nao_patterns",
         "NAO patterns: each dataset's own leading EOF as a regression map, "
@@ -88,11 +82,9 @@ def figure_set(comparison) -> Iterator[tuple[str, str, Any]]:
 
     if comparison.jet_modes is not None:
         own_modes = d["jet_own"]
-        density = _stack({k: m.density for k, m in own_modes.items()})
-        low = _stack(
-            {k: m.density_band.sel(bound="lower", drop=True) for k, m in own_modes.items()}
-        )
-        high = _stack(
+        density = stack({k: m.density for k, m in own_modes.items()})
+        low = stack({k: m.density_band.sel(bound="lower", drop=True) for k, m in own_modes.items()})
+        high = stack(
             {k: m.density_band.sel(bound="upper", drop=True) for k, m in own_modes.items()}
         )
         modes = {k: list(map(float, m.modes.values)) for k, m in own_modes.items()}
@@ -131,7 +123,7 @@ def figure_set(comparison) -> Iterator[tuple[str, str, Any]]:
     if comparison.regimes is not None:
         names = list(comparison.regimes.names)
         own_c = {k: m.centroids for k, m in d["regime_own"].items()}
-        centroids = _stack(own_c)  # the fitting dataset's own regimes are the fitted ones
+        centroids = stack(own_c)  # the fitting dataset's own regimes are the fitted ones
         occ = _summary_values(summary, "regimes", "(fraction", list(own_c), names)["value"]
         occ_da = xr.DataArray(
             occ,
@@ -154,7 +146,7 @@ def figure_set(comparison) -> Iterator[tuple[str, str, Any]]:
         )
         from .regime_stats import episodes
 
-        surv = _stack(
+        surv = stack(
             {k: episodes(v, names=names)["survival"] for k, v in d["regime_labels"].items()}
         )
         yield (

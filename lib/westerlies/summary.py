@@ -24,6 +24,7 @@ import pandas as pd
 import xarray as xr
 
 from . import resampling
+from .config import resampling_keywords
 from .errors import InputError, InputWarning
 from .timeseries import EfoldingTime
 
@@ -58,10 +59,7 @@ class SummaryBuilder:
         self.prepared, self.results = prepared, results
         self.labels, self.baseline, self.reference = list(labels), baseline, reference
         self.alpha = opts["resampling"]["alpha"]
-        self.res = {
-            "n_resamples": opts["resampling"]["n_resamples"],
-            "seed": opts["resampling"]["seed"],
-        }
+        self.res = resampling_keywords(opts)
         self.max_lag = opts["memory"]["max_lag"]
         self.rows: list[dict] = []
 
