@@ -342,3 +342,19 @@ def test_map_test_on_shared_block_sums_equals_the_direct_test():
     )
     with pytest.raises(ConfigError, match="ttest"):
         map_difference_test(field_block_sums(x), y, method="ttest")
+
+
+def test_weight_matrices_are_reused_for_one_seed_and_fresh_for_a_generator():
+    from westerlies.resampling import bootstrap_weights, permutation_weights
+
+    first = permutation_weights(30, 20, 200, seed=7)
+    again = permutation_weights(30, 20, 200, seed=7)
+    assert again is first  # the cached matrix, not a new draw
+    assert not first.flags.writeable  # shared, so nobody may change it in place
+    assert np.all(first.sum(axis=1) == 30)  # each row relabels exactly 30 blocks as "first"
+    assert not np.array_equal(permutation_weights(30, 20, 200, seed=8), first)
+    boot = bootstrap_weights(50, 200, seed=7)
+    assert np.all(boot.sum(axis=1) == 50)
+    # a Generator's state moves on: two draws from one generator must differ
+    rng = np.random.default_rng(7)
+    assert not np.array_equal(bootstrap_weights(50, 200, rng), bootstrap_weights(50, 200, rng))

@@ -49,6 +49,8 @@ from __future__ import annotations
 
 import itertools
 import re
+import threading
+from collections import OrderedDict
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 from typing import Any, Literal, Protocol, runtime_checkable
@@ -524,39 +526,74 @@ def _check_resamples(n_resamples: int) -> int:
     return int(n_resamples)
 
 
+# Every statistic of one dataset (or pair) is resampled with the same seed and sizes, so the
+# same weight matrix serves them all: generating it (millions of random keys) costs more than
+# the matrix product, so recent matrices are kept, read-only, under a memory bound.
+_CACHE_BYTES = 128 * 1024**2
+_cache: OrderedDict[tuple, np.ndarray] = OrderedDict()
+_cache_lock = threading.Lock()
+
+
+def _cached(key: tuple, seed: Seed, make: Callable[[np.random.Generator], np.ndarray]):
+    """`make(rng)` for an integer seed through the cache; a Generator is never cached (its
+    state moves on)."""
+    if not isinstance(seed, (int, np.integer)) or isinstance(seed, bool):
+        return make(_rng(seed))
+    key = (*key, int(seed))
+    with _cache_lock:
+        if key in _cache:
+            _cache.move_to_end(key)
+            return _cache[key]
+    weights = make(np.random.default_rng(seed))
+    weights.flags.writeable = False
+    if weights.nbytes <= _CACHE_BYTES:
+        with _cache_lock:
+            _cache[key] = weights
+            while sum(w.nbytes for w in _cache.values()) > _CACHE_BYTES:
+                _cache.popitem(last=False)
+    return weights
+
+
 def bootstrap_weights(
     n_blocks: int, n_resamples: int, seed: Seed = 0, *, n_draws: int | None = None
 ) -> np.ndarray:
     """(n_resamples, n_blocks) multinomial counts: `n_draws` (default n_blocks) blocks drawn
-    with replacement per row."""
-    rng = _rng(seed)
+    with replacement per row. Read-only (shared between calls with the same integer seed)."""
     n_draws = n_blocks if n_draws is None else n_draws
-    picks = rng.integers(0, n_blocks, size=(n_resamples, n_draws))
-    flat = picks + n_blocks * np.arange(n_resamples)[:, None]
-    counts = np.bincount(flat.ravel(), minlength=n_resamples * n_blocks)
-    return counts.reshape(n_resamples, n_blocks).astype(float)
+
+    def make(rng: np.random.Generator) -> np.ndarray:
+        picks = rng.integers(0, n_blocks, size=(n_resamples, n_draws))
+        flat = picks + n_blocks * np.arange(n_resamples)[:, None]
+        counts = np.bincount(flat.ravel(), minlength=n_resamples * n_blocks)
+        return counts.reshape(n_resamples, n_blocks).astype(float)
+
+    return _cached(("bootstrap", n_blocks, n_draws, n_resamples), seed, make)
 
 
 def subsample_weights(n_blocks: int, n_draws: int, n_resamples: int, seed: Seed = 0) -> np.ndarray:
-    """(n_resamples, n_blocks) 0/1 rows, each choosing `n_draws` distinct blocks."""
-    rng = _rng(seed)
-    weights = np.zeros((n_resamples, n_blocks))
-    if n_draws >= n_blocks:
-        weights[:] = 1.0
-    elif n_draws > 0:
-        # The positions of the n_draws smallest of n_blocks uniform keys: a uniformly random
-        # subset per row. argpartition returns exactly n_draws distinct positions even when
-        # keys tie, so single-precision keys are safe (ties only reorder equal keys) and cheap.
-        keys = rng.random((n_resamples, n_blocks), dtype=np.float32)
-        chosen = np.argpartition(keys, n_draws - 1, axis=1)[:, :n_draws]
-        np.put_along_axis(weights, chosen, 1.0, axis=1)
-    return weights
+    """(n_resamples, n_blocks) 0/1 rows, each choosing `n_draws` distinct blocks. Read-only."""
+
+    def make(rng: np.random.Generator) -> np.ndarray:
+        weights = np.zeros((n_resamples, n_blocks))
+        if n_draws >= n_blocks:
+            weights[:] = 1.0
+        elif n_draws > 0:
+            # The positions of the n_draws smallest of n_blocks uniform keys: a uniformly random
+            # subset per row. argpartition returns exactly n_draws distinct positions even when
+            # keys tie, so single-precision keys are safe (ties only reorder equal keys) and
+            # cheap.
+            keys = rng.random((n_resamples, n_blocks), dtype=np.float32)
+            chosen = np.argpartition(keys, n_draws - 1, axis=1)[:, :n_draws]
+            np.put_along_axis(weights, chosen, 1.0, axis=1)
+        return weights
+
+    return _cached(("subsample", n_blocks, n_draws, n_resamples), seed, make)
 
 
 def permutation_weights(n_first: int, n_second: int, n_resamples: int, seed: Seed = 0):
     """(n_resamples, n_first + n_second) 0/1 rows: 1 marks blocks relabelled as the first group.
 
-    Each row is a random relabelling of the pooled blocks that keeps the group sizes.
+    Each row is a random relabelling of the pooled blocks that keeps the group sizes. Read-only.
     """
     return subsample_weights(n_first + n_second, n_first, n_resamples, seed)
 
