@@ -146,6 +146,14 @@ def _dask_progress(enabled: bool):
     return ProgressBar(minimum=2.0)
 
 
+def _quiet_input_warnings() -> None:
+    import warnings
+
+    from .errors import InputWarning
+
+    warnings.simplefilter("ignore", InputWarning)
+
+
 def _cluster(workers: int | None, scheduler: str | None, say):
     """A dask.distributed client for the run (closed at the end), or nothing."""
     import contextlib
@@ -162,6 +170,8 @@ def _cluster(workers: int | None, scheduler: str | None, say):
         # one thread per worker process: the numerical kernels are already vectorized
         cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True)
         client = Client(cluster)
+        # as in the threaded run: the diagnostics' expected InputWarnings stay quiet in workers
+        client.run(_quiet_input_warnings)
     if say:
         say(f"dask cluster: {client.dashboard_link}")
     return contextlib.closing(client)

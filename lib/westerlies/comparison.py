@@ -17,19 +17,22 @@ from __future__ import annotations
 import time
 import warnings
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pandas as pd
 import xarray as xr
 from dask import compute as dask_compute
+from dask import persist as dask_persist
 
 from . import seasons, timeaxis
 from .anomalies import anomalies, climatology
 from .config import validate_options
 from .data import open_dataset
 from .errors import ConfigError, InputError, InputWarning, TimeStepError
+from .resampling import FieldBlockSums, PendingBlockSums, lazy_field_block_sums
 from .summary import SummaryBuilder
 
 __all__ = ["Comparison", "compare"]
@@ -41,7 +44,7 @@ class Prepared:
 
     label: str
     z_anoms: xr.DataArray | None  # daily (or coarser) Z500 anomalies, m
-    z_season: xr.DataArray | None  # raw Z500 in the season, m (for mean-state maps)
+    z_sums: FieldBlockSums | None  # per-block sums of season Z500 on the common grid (maps)
     jet: xr.Dataset | None  # latitude, speed on (member, time)
     sst_anoms: xr.DataArray | None
     daily: bool
@@ -178,68 +181,132 @@ def _source_info(spec: Any) -> list[dict]:
     return [{"path": str(p), "bytes": Path(p).stat().st_size} for p in paths if Path(p).exists()]
 
 
-def _prepare(
-    label: str,
-    ds: xr.Dataset,
-    sources: list[dict],
+def _prepare_all(
+    opened: dict[str, tuple[xr.Dataset, list[dict]]],
+    baseline: str,
+    ref_label: str | None,
     season: str,
     opts: dict,
-    clim: dict[str, xr.DataArray] | None,
-) -> tuple[Prepared, dict[str, xr.DataArray]]:
-    """Anomalies, season selection and the jet index of one dataset. Returns its climatologies."""
+) -> dict[str, Prepared]:
+    """Anomalies, season selection, map sums and the jet index of every dataset.
+
+    Two passes over the files, each for every dataset at once (so the scheduler can work on
+    all datasets and chunks in parallel): the climatologies and the jet's sector wind profiles
+    (small), then one graph for the Z500 anomalies kept in memory and the per-block map sums,
+    so each Z500 chunk is read once for both.
+    """
     from .filters import select_filtered_season
-    from .jet import jet_index
+    from .jet import jet_from_profile, sector_profile
 
+    kinds = {}
+    for label, (ds, _) in opened.items():
+        kinds[label] = timeaxis.time_kind(ds["time"])
+        if kinds[label] == "subdaily":
+            raise TimeStepError.make(
+                f"dataset {label!r}: time axis",
+                f"sub-daily data (typical step {timeaxis.median_step_days(ds['time']):g} days)",
+                "daily, monthly or seasonal data",
+                "open it with daily='mean' (configuration: daily = \"mean\" under its dataset)",
+            )
+
+    # pass 1: every climatology and every jet sector profile (small: days of the year x grid,
+    # and member x day x latitude), for all datasets together
     smoothing = opts["anomalies"]["smoothing_days"]
-    own_clim: dict[str, xr.DataArray] = {}
-    kind = timeaxis.time_kind(ds["time"])
-    if kind == "subdaily":
-        raise TimeStepError.make(
-            f"dataset {label!r}: time axis",
-            f"sub-daily data (typical step {timeaxis.median_step_days(ds['time']):g} days)",
-            "daily, monthly or seasonal data",
-            "open it with daily='mean' (configuration: daily = \"mean\" under its dataset)",
-        )
-    daily = kind == "daily"
+    j = opts["jet"]
+    lazy_small: dict[tuple[str, str], Any] = {}
+    used_levels = {}
+    for label, (ds, _) in opened.items():
+        kw = {"smoothing_days": smoothing} if kinds[label] == "daily" else {}
+        for name in ("z500", "sst"):
+            if name in ds:
+                lazy_small[label, name] = climatology(ds[name], **kw)
+        if "u" in ds and kinds[label] == "daily":
+            lazy_small[label, "u"], used_levels[label] = sector_profile(
+                ds["u"],
+                levels=tuple(j["levels"]),
+                sector=tuple(j["sector"]),
+                lat_range=tuple(j["lat_range"]),
+            )
+    small = dict(zip(lazy_small, dask_compute(*lazy_small.values()), strict=True))
+    clim = {key: v for key, v in small.items() if key[1] != "u"}
 
-    # The climatologies are computed now, together (one pass over the files for all fields;
-    # they are small: days of the year x grid), so that the many later passes over dask-backed
-    # data read each field once instead of re-deriving its climatology.
-    kw = {"smoothing_days": smoothing} if daily else {}
-    names = [n for n in ("z500", "sst") if n in ds]
-    computed = dask_compute(*[climatology(ds[n], **kw) for n in names])
-    own_clim.update(zip(names, computed, strict=True))
-
-    def anoms_of(name: str) -> xr.DataArray | None:
+    def anoms_of(label: str, name: str) -> xr.DataArray | None:
+        ds = opened[label][0]
         if name not in ds:
             return None
-        base = clim.get(name) if clim else None
-        a = anomalies(ds[name], climatology=base if base is not None else own_clim[name])
+        against_baseline = opts["anomalies"]["against"] == "baseline" and label not in (
+            baseline,
+            ref_label,
+        )
+        base = clim.get((baseline, name)) if against_baseline else None
+        a = anomalies(ds[name], climatology=base if base is not None else clim[label, name])
         return _quiet_season(a, season)
 
+    # pass 2: one graph for the rest; what is kept is computed once and stays in memory (or in
+    # the workers' memory on a cluster), the map sums and jet index are small
     budget = opts["anomalies"]["persist_mb"] * 1e6
-    z_anoms = _kept(
-        _single(_crop(anoms_of("z500"), opts["nao"]["domain"], opts["regimes"]["domain"])),
-        budget,
-    )
-    sst_anoms = _kept(_single(_crop(anoms_of("sst"), opts["sst"]["domain"])), budget)
-    z_season = _kept(_quiet_season(ds["z500"], season), budget) if "z500" in ds else None
-    jet = None
-    if "u" in ds and daily:
-        j = opts["jet"]
-        index = jet_index(
-            ds["u"],
-            levels=tuple(j["levels"]),
-            sector=tuple(j["sector"]),
-            lat_range=tuple(j["lat_range"]),
-            cutoff_days=j["cutoff_days"],
-            n_weights=j["n_weights"],
+    grid = opened[next(iter(opened))][0]["z500"]
+    pending: dict[str, dict[str, Any]] = {}
+    for label, (ds, _) in opened.items():
+        parts: dict[str, Any] = {
+            "z_anoms": _single(
+                _crop(anoms_of(label, "z500"), opts["nao"]["domain"], opts["regimes"]["domain"])
+            ),
+            "sst_anoms": _single(_crop(anoms_of(label, "sst"), opts["sst"]["domain"])),
+            "z_sums": lazy_field_block_sums(_on_grid(_quiet_season(ds["z500"], season), grid)),
+        }
+        if (label, "u") in small:
+            index = jet_from_profile(
+                small[label, "u"],
+                used=used_levels[label],
+                sector=tuple(j["sector"]),
+                lat_range=tuple(j["lat_range"]),
+                cutoff_days=j["cutoff_days"],
+                n_weights=j["n_weights"],
+            )
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", InputWarning)
+                parts["jet"] = select_filtered_season(index, season)
+        pending[label] = parts
+
+    def wanted(name: str, obj: Any) -> bool:
+        if name == "z_sums":
+            return True
+        return obj is not None and _is_dask(obj) and obj.nbytes <= budget
+
+    keys = [(k, n) for k, parts in pending.items() for n, obj in parts.items() if wanted(n, obj)]
+    work = [pending[k][n] for k, n in keys]
+    work = [(w.sums, w.counts) if isinstance(w, PendingBlockSums) else w for w in work]
+    for (label, name), done in zip(keys, dask_persist(*work), strict=True):
+        old = pending[label][name]
+        pending[label][name] = (
+            replace(old, sums=done[0], counts=done[1])
+            if isinstance(old, PendingBlockSums)
+            else done
         )
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", InputWarning)
-            jet = select_filtered_season(index, season).load()
-    prepared = Prepared(label, z_anoms, z_season, jet, sst_anoms, daily, sources)
-    return prepared, own_clim
+    prepared = {}
+    for label, parts in pending.items():
+        jet = parts.get("jet")
+        prepared[label] = Prepared(
+            label,
+            parts["z_anoms"],
+            parts["z_sums"].result(),
+            None if jet is None else jet.load(),
+            parts["sst_anoms"],
+            kinds[label] == "daily",
+            opened[label][1],
+        )
+    return prepared
+
+
+def _is_dask(obj: Any) -> bool:
+    return hasattr(getattr(obj, "data", None), "dask")
+
+
+def _on_grid(z: xr.DataArray, grid: xr.DataArray) -> xr.DataArray:
+    """`z` on the horizontal grid of `grid` (interpolating the grid only, never time)."""
+    same = all(np.array_equal(z[d].values, grid[d].values) for d in ("lat", "lon"))
+    return z if same else z.interp(lat=grid["lat"], lon=grid["lon"])
 
 
 def _crop(da: xr.DataArray | None, *domains) -> xr.DataArray | None:
@@ -262,15 +329,6 @@ def _single(da: xr.DataArray | None) -> xr.DataArray | None:
     out = da.astype("float32")
     out.attrs = da.attrs
     return out
-
-
-def _kept(da: xr.DataArray | None, budget_bytes: float) -> xr.DataArray | None:
-    """Dask-backed data under the budget are computed once and kept (in memory, or in the
-    workers' memory on a cluster); the diagnostics then pass over them many times without
-    reading the files again. Larger data stay lazy and are re-read in every pass."""
-    if da is None or not hasattr(da.data, "dask") or da.nbytes > budget_bytes:
-        return da
-    return da.persist()
 
 
 def _quiet_season(da: xr.DataArray, season: str) -> xr.DataArray:
@@ -361,23 +419,8 @@ def compare(
                     "add Z500 or name it with variables={'z500': ...}",
                 )
 
-    prepared: dict[str, Prepared] = {}
     with steps.timed("anomalies, season and jet index"):
-        base_clim = None
-        order = [baseline] + [k for k in labels if k != baseline]
-        for label in order:
-            use = (
-                base_clim
-                if (
-                    opts["anomalies"]["against"] == "baseline"
-                    and label not in (baseline, ref_label)
-                )
-                else None
-            )
-            prepared[label], own = _prepare(label, *opened[label], season, opts, use)
-            if label == baseline:
-                base_clim = own
-        prepared = {k: prepared[k] for k in labels}
+        prepared = _prepare_all(opened, baseline, ref_label, season, opts)
 
     from .diagnostics import run_diagnostics
 

@@ -11,6 +11,7 @@ from typing import Any
 
 import numpy as np
 import xarray as xr
+from threadpoolctl import threadpool_limits
 
 from . import resampling
 from .config import resampling_keywords
@@ -35,12 +36,44 @@ def run_diagnostics(prepared, labels, fit_on, baseline, ref_label, opts, steps) 
     out: dict[str, Any] = {"fit_on": fit_on}
     daily_fit = fit_on if prepared[fit_on].daily else baseline
     out["daily_fit_on"] = daily_fit
-    with steps.timed("NAO"):
-        _nao(prepared, labels, fit_on, opts, out)
-    with steps.timed("eddy-driven jet"):
-        _jet(prepared, labels, daily_fit, opts, out)
-    with steps.timed("weather regimes"):
-        _regimes(prepared, labels, daily_fit, opts, out)
+    jet_labels = [k for k in labels if prepared[k].jet is not None]
+    regime_labels = [k for k in labels if prepared[k].daily]
+    out["jet_labels"], out["regime_dataset_labels"] = jet_labels, regime_labels
+    res = resampling_keywords(opts)
+    with steps.timed("fitting the NAO, weather regimes and jet modes"):
+        calls: dict[str, tuple] = {"nao": (_fit_nao, prepared[fit_on].z_anoms, opts)}
+        if daily_fit in regime_labels:
+            calls["regimes"] = (_fit_regimes, prepared[daily_fit].z_anoms, opts)
+        if daily_fit in jet_labels:
+            calls["jet"] = (_fit_jet, prepared[daily_fit].jet["latitude"], res)
+        fitted = run_each(calls)
+    out["nao"] = fitted["nao"]
+    out["regimes"] = fitted.get("regimes")
+    out["jet_modes"] = fitted.get("jet")
+    with steps.timed("applying them to every dataset"):
+        applied = run_each(
+            {
+                k: (
+                    _apply,
+                    prepared[k].z_anoms,
+                    prepared[k].jet["latitude"] if k in jet_labels else None,
+                    out["nao"],
+                    out["regimes"] if k in regime_labels else None,
+                    out["jet_modes"],
+                    k == daily_fit,
+                    res,
+                )
+                for k in labels
+            }
+        )
+    out["nao_index"] = {k: applied[k]["nao_index"] for k in labels}
+    out["nao_compare"] = {k: applied[k]["nao_compare"] for k in labels}
+    if out["regimes"] is not None:
+        out["regime_labels"] = {k: applied[k]["regime_labels"] for k in regime_labels}
+        out["regime_own"] = {k: applied[k]["regime_own"] for k in regime_labels}
+    if out["jet_modes"] is not None:
+        out["jet_own"] = {k: applied[k]["jet_own"] for k in jet_labels}
+        out["jet_category"] = {k: applied[k]["jet_category"] for k in jet_labels}
     with steps.timed("SST index and index memory"):
         _sst(prepared, labels, fit_on, opts, out)
         _memory(prepared, labels, opts, out)
@@ -50,71 +83,90 @@ def run_diagnostics(prepared, labels, fit_on, baseline, ref_label, opts, steps) 
     return out
 
 
-# --------------------------------------------------------------------------------- NAO
+# ------------------------------------------------------------------ running per-dataset work
+
+#: per-dataset work whose dask-backed inputs are at most this large runs as one task with the
+#: data computed in it (datasets in parallel); larger fields stay chunked (peak memory bounded)
+WHOLE_TASK_BYTES = 256e6
 
 
-def _nao(prepared, labels, fit_on, opts, out) -> None:
+def _is_dask(obj: Any) -> bool:
+    return hasattr(getattr(obj, "data", None), "dask")
+
+
+def run_each(calls: dict[str, tuple]) -> dict[str, Any]:
+    """``func(*args)`` for every ``key: (func, *args)``, independent calls run side by side.
+
+    Calls whose dask-backed arguments are all small (`WHOLE_TASK_BYTES`) become one dask
+    computation: the active scheduler runs them in parallel (dask's threads, or the workers of
+    a dask.distributed cluster, each call on one worker with its data gathered there), and the
+    functions see in-memory data, so the numbers do not depend on the scheduler. Calls with a
+    larger dask-backed argument run here in turn, on the chunked data.
+    """
+    import dask
+
+    lazy, direct = {}, {}
+    for key, (func, *args) in calls.items():
+        large = any(_is_dask(a) and a.nbytes > WHOLE_TASK_BYTES for a in args)
+        if large:
+            direct[key] = (func, args)
+        else:
+            lazy[key] = dask.delayed(func, pure=False)(*args)
+    # One BLAS/OpenMP thread per call: the calls themselves run in parallel, and a library's
+    # threads split sums differently when calls overlap, which would make the last digits
+    # depend on timing (and small decompositions are faster single-threaded on 2 cores).
+    with warnings.catch_warnings(), threadpool_limits(limits=1):
+        # one filter for every task (threads share it; catch_warnings inside tasks would race)
+        warnings.simplefilter("ignore", InputWarning)
+        results = dict(zip(lazy, dask.compute(*lazy.values()), strict=True))
+        for key, (func, args) in direct.items():
+            results[key] = func(*args)
+    return {k: results[k] for k in calls}
+
+
+# --------------------------------------------------------------------------------- fits
+
+
+def _fit_nao(z_anoms: xr.DataArray, opts: dict):
     from .nao import NAO
 
-    domain = tuple(opts["nao"]["domain"])
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", InputWarning)
-        nao = NAO.fit(prepared[fit_on].z_anoms, domain=domain)
-        out["nao"] = nao
-        out["nao_index"] = {k: nao.index(prepared[k].z_anoms) for k in labels}
-        out["nao_compare"] = {k: nao.compare_pattern(prepared[k].z_anoms) for k in labels}
+    return NAO.fit(z_anoms, domain=tuple(opts["nao"]["domain"]))
 
 
-# --------------------------------------------------------------------------------- jet
-
-
-def _jet(prepared, labels, fit_on, opts, out) -> None:
-    from .density import jet_modes
-
-    out["jet_modes"] = None
-    have = [k for k in labels if prepared[k].jet is not None]
-    out["jet_labels"] = have
-    if fit_on not in have:
-        return
-    res = resampling_keywords(opts)
-    own = {}
-    for k in have:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", InputWarning)
-            own[k] = jet_modes(prepared[k].jet["latitude"], **res)
-    out["jet_modes"] = own[fit_on]
-    out["jet_own"] = own
-    out["jet_category"] = {k: own[fit_on].categorize(prepared[k].jet["latitude"]) for k in have}
-
-
-# --------------------------------------------------------------------------------- regimes
-
-
-def _regimes(prepared, labels, fit_on, opts, out) -> None:
+def _fit_regimes(z_anoms: xr.DataArray, opts: dict):
     from .regimes import Regimes
 
-    out["regimes"] = None
-    have = [k for k in labels if prepared[k].daily]
-    out["regime_dataset_labels"] = have
-    if fit_on not in have:
-        return
     r = opts["regimes"]
-    seed = opts["resampling"]["seed"]
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", InputWarning)
-        fitted = Regimes.fit(
-            prepared[fit_on].z_anoms,
-            n_regimes=r["n_regimes"],
-            n_pcs=r["n_pcs"],
-            domain=tuple(r["domain"]),
-            n_init=r["n_init"],
-            seed=seed,
-        )
-        out["regimes"] = fitted
-        out["regime_labels"] = {
-            k: fitted.labels if k == fit_on else fitted.assign(prepared[k].z_anoms) for k in have
-        }
-        out["regime_own"] = {k: fitted.own_regimes(prepared[k].z_anoms) for k in have}
+    return Regimes.fit(
+        z_anoms,
+        n_regimes=r["n_regimes"],
+        n_pcs=r["n_pcs"],
+        domain=tuple(r["domain"]),
+        n_init=r["n_init"],
+        seed=opts["resampling"]["seed"],
+    )
+
+
+def _fit_jet(latitude: xr.DataArray, res: dict):
+    from .density import jet_modes
+
+    return jet_modes(latitude, **res)
+
+
+def _apply(z_anoms, jet_latitude, nao, regimes, jet_fit, is_daily_fit: bool, res) -> dict:
+    """Everything one dataset needs from the fitted basis: NAO index and own pattern, regime
+    labels and own regimes, own jet modes and jet categories."""
+    out: dict[str, Any] = {
+        "nao_index": nao.index(z_anoms),
+        "nao_compare": nao.compare_pattern(z_anoms),
+    }
+    if regimes is not None:
+        out["regime_labels"] = regimes.labels if is_daily_fit else regimes.assign(z_anoms)
+        out["regime_own"] = regimes.own_regimes(z_anoms)
+    if jet_fit is not None and jet_latitude is not None:
+        out["jet_own"] = jet_fit if is_daily_fit else _fit_jet(jet_latitude, res)
+        out["jet_category"] = jet_fit.categorize(jet_latitude)
+    return out
 
 
 # --------------------------------------------------------------------------------- SST
@@ -221,19 +273,14 @@ def _ccf(out, labels, max_lag, res) -> dict[str, xr.DataArray] | None:
 def _maps(prepared, labels, baseline, ref_label, opts) -> xr.Dataset:
     """Season-mean Z500 of each dataset, its bias and its response, with FDR masks.
 
-    Each dataset's field is reduced once to per-block sums at every grid point (on the first
-    dataset's grid); the season means and every map test are built from those sums.
+    Each dataset's field was reduced once to per-block sums at every grid point (on the first
+    dataset's grid, see `westerlies.comparison`); the season means and every map test are built
+    from those sums.
     """
     alpha = opts["resampling"]["alpha"]
     wilks = opts["resampling"]["fdr"] == "wilks"
     res = resampling_keywords(opts)
-    base = prepared[labels[0]].z_season
-    sums = {}
-    for k in labels:
-        z = prepared[k].z_season
-        same = all(np.array_equal(z[d].values, base[d].values) for d in ("lat", "lon"))
-        on_base = z if same else z.interp(lat=base["lat"], lon=base["lon"])  # grid only
-        sums[k] = resampling.field_block_sums(on_base)
+    sums = {k: prepared[k].z_sums for k in labels}
     grid = sums[labels[0]].template
 
     def mean(f: resampling.FieldBlockSums) -> xr.DataArray:

@@ -21,7 +21,7 @@ import xarray as xr
 from .errors import CoordinateError, GridError, InputError, InputWarning, MissingValueError
 from .filters import EdgeTreatment, _check_time, lowpass
 
-__all__ = ["jet_index"]
+__all__ = ["jet_from_profile", "jet_index", "sector_profile"]
 
 
 def _profile_maximum(profiles: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -211,7 +211,42 @@ def jet_index(
         )
     _check_time(u, "jet_index")
     profile, used = _sector_profile(u, levels, sector, lat_range)
-    profile = profile.compute()
+    return jet_from_profile(
+        profile.compute(),
+        used=used,
+        sector=sector,
+        lat_range=lat_range,
+        cutoff_days=cutoff_days,
+        n_weights=n_weights,
+        edge=edge,
+    )
+
+
+def sector_profile(
+    u: xr.DataArray,
+    *,
+    levels: Sequence[float] | None = (925, 700),
+    sector: Sequence[float] = (-60, 0),
+    lat_range: Sequence[float] = (15, 75),
+) -> tuple[xr.DataArray, list[float]]:
+    """The first half of `jet_index`: the (member, time, lat) wind profile of the sector (m
+    s-1), lazy for dask input, and the levels used (hPa). Computing several datasets' profiles
+    together, then `jet_from_profile`, gives `jet_index` with one pass over the files."""
+    _check_time(u, "jet_index")
+    return _sector_profile(u, levels, sector, lat_range)
+
+
+def jet_from_profile(
+    profile: xr.DataArray,
+    *,
+    used: list[float],
+    sector: Sequence[float] = (-60, 0),
+    lat_range: Sequence[float] = (15, 75),
+    cutoff_days: float | None = 10,
+    n_weights: int = 61,
+    edge: EdgeTreatment = "nan",
+) -> xr.Dataset:
+    """The second half of `jet_index` on an in-memory `sector_profile` (same keywords)."""
     gaps = profile.isnull().any("lat")
     n_missing = int(gaps.sum())
     if n_missing == gaps.size:

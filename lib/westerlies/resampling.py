@@ -69,6 +69,7 @@ __all__ = [
     "CategoryPersistence",
     "FieldBlockSums",
     "Mean",
+    "PendingBlockSums",
     "Quantile",
     "StandardDeviation",
     "Statistic",
@@ -82,6 +83,7 @@ __all__ = [
     "field_block_sums",
     "get_statistic",
     "ks_test",
+    "lazy_field_block_sums",
     "map_difference_test",
     "map_ks_test",
     "permutation_test",
@@ -1094,27 +1096,6 @@ def _as_field(x: xr.DataArray, where: str) -> tuple[xr.DataArray, list[str]]:
     return x.transpose("member", "time", *space), space
 
 
-def _field_block_sums(x: xr.DataArray, space: list[str]) -> tuple[np.ndarray, np.ndarray]:
-    """Per-block sums and counts of valid days at every grid point: (n_blocks, n_points) each.
-
-    The reduction over time happens before loading (dask-friendly); rows follow `block_ids`.
-    """
-    valid = x.notnull()
-    filled = x.fillna(0.0)
-    if "season_year" in x.coords:
-        sums = filled.groupby("season_year").sum("time").stack(block=("member", "season_year"))
-        counts = valid.groupby("season_year").sum("time").stack(block=("member", "season_year"))
-    else:
-        sums = filled.sum("time").rename(member="block")
-        counts = valid.sum("time").rename(member="block")
-    n_points = int(np.prod([x.sizes[d] for d in space]))
-    # both reductions in one pass over the data (one read for dask-backed fields)
-    sums, counts = xr.align(*dask_compute(sums, counts))
-    s = np.asarray(sums.transpose("block", *space).values, dtype=float).reshape(-1, n_points)
-    n = np.asarray(counts.transpose("block", *space).values, dtype=float).reshape(-1, n_points)
-    return s, n
-
-
 @dataclass(frozen=True)
 class FieldBlockSums:
     """Per-block sums and counts of a field at every grid point, for `map_difference_test`.
@@ -1129,11 +1110,51 @@ class FieldBlockSums:
     units: str
 
 
+@dataclass(frozen=True)
+class PendingBlockSums:
+    """`field_block_sums` before computing: `sums` and `counts` are (block, grid...) DataArrays,
+    lazy for dask-backed fields, so that they can join other work in one pass over the files
+    (compute or persist ``(pending.sums, pending.counts)`` and `replace` them)."""
+
+    sums: xr.DataArray
+    counts: xr.DataArray
+    space: tuple[str, ...]
+    template: xr.DataArray
+    units: str
+
+    def result(self) -> FieldBlockSums:
+        """The numpy (n_blocks, n_points) sums and counts (computes what is still lazy)."""
+        sums, counts = xr.align(*dask_compute(self.sums, self.counts))
+        n_points = int(np.prod([sums.sizes[d] for d in self.space]))
+        s = np.asarray(sums.transpose("block", *self.space).values, dtype=float)
+        n = np.asarray(counts.transpose("block", *self.space).values, dtype=float)
+        return FieldBlockSums(
+            s.reshape(-1, n_points), n.reshape(-1, n_points), self.template, self.units
+        )
+
+
+def lazy_field_block_sums(x: xr.DataArray) -> PendingBlockSums:
+    """Per-block sums and valid-day counts of a (member, time, grid...) field, not yet computed.
+
+    The reduction over time happens before loading (dask-friendly); rows follow `block_ids`.
+    """
+    x, space = _as_field(x, "field_block_sums: field")
+    valid = x.notnull()
+    filled = x.fillna(0.0)
+    if "season_year" in x.coords:
+        sums = filled.groupby("season_year").sum("time").stack(block=("member", "season_year"))
+        counts = valid.groupby("season_year").sum("time").stack(block=("member", "season_year"))
+    else:
+        sums = filled.sum("time").rename(member="block")
+        counts = valid.sum("time").rename(member="block")
+    return PendingBlockSums(
+        sums, counts, tuple(space), _template(x, space), x.attrs.get("units", "")
+    )
+
+
 def field_block_sums(x: xr.DataArray) -> FieldBlockSums:
     """Per-block sums and valid-day counts of a (member, time, grid...) field, in one pass."""
-    x, space = _as_field(x, "field_block_sums: field")
-    sums, counts = _field_block_sums(x, space)
-    return FieldBlockSums(sums, counts, _template(x, space), x.attrs.get("units", ""))
+    return lazy_field_block_sums(x).result()
 
 
 def _template(x: xr.DataArray, space: list[str]) -> xr.DataArray:
