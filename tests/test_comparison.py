@@ -165,7 +165,7 @@ def test_existing_output_refused_untouched(planted, tmp_path):
 
 
 def test_interrupted_write_leaves_nothing(planted, tmp_path, monkeypatch):
-    original = report_figures.figure_set
+    original = report_figures.figure_recipes
 
     def interrupted(comparison):
         for i, item in enumerate(original(comparison)):
@@ -173,7 +173,7 @@ def test_interrupted_write_leaves_nothing(planted, tmp_path, monkeypatch):
                 raise KeyboardInterrupt
             yield item
 
-    monkeypatch.setattr(report_figures, "figure_set", interrupted)
+    monkeypatch.setattr(report_figures, "figure_recipes", interrupted)
     with pytest.raises(KeyboardInterrupt):
         planted.write(tmp_path / "set")
     assert list(tmp_path.iterdir()) == []

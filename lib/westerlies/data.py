@@ -169,7 +169,12 @@ def _paths(source) -> list[Path]:
 def _open_one(path: Path, chunks) -> xr.Dataset:
     """Open one file; with a mapping of chunks, only the dims the file has are chunked (the
     canonical names, such as ``member`` for files concatenated later, may not be there yet)."""
-    by_dim = isinstance(chunks, Mapping)
+    return _chunked(_open_lazy(path), chunks)
+
+
+def _open_lazy(path: Path) -> xr.Dataset:
+    """One file opened without dask: metadata read, values read lazily (under xarray's file
+    locks) when indexed."""
     if not path.exists():
         raise InputError.make(
             f"file {str(path)!r}", "no such file", "an existing netCDF file", "check the path"
@@ -177,8 +182,7 @@ def _open_one(path: Path, chunks) -> xr.Dataset:
     try:
         with warnings.catch_warnings():
             warnings.filterwarnings("ignore", message="Ambiguous reference date string")
-            ds = xr.open_dataset(path, chunks={} if by_dim else chunks)
-        return ds.chunk({k: v for k, v in chunks.items() if k in ds.dims}) if by_dim else ds
+            return xr.open_dataset(path)
     except (OSError, ValueError) as err:
         raise InputError.make(
             f"file {str(path)!r}",
@@ -188,6 +192,14 @@ def _open_one(path: Path, chunks) -> xr.Dataset:
         ) from err
 
 
+def _chunked(ds: xr.Dataset, chunks) -> xr.Dataset:
+    if chunks is None:
+        return ds
+    if isinstance(chunks, Mapping):
+        return ds.chunk({}).chunk({k: v for k, v in chunks.items() if k in ds.dims})
+    return ds.chunk(chunks)
+
+
 def _read(source, *, chunks, member_dim):
     """Raw dataset, a label for messages, and the member files (None unless one per member)."""
     if isinstance(source, xr.Dataset):
@@ -195,20 +207,21 @@ def _read(source, *, chunks, member_dim):
     paths = _paths(source)
     if len(paths) == 1:
         return _open_one(paths[0], chunks), f"file {str(paths[0])!r}", None
-    parts = []
+    parts, lazies = [], []
     for path in paths:
-        part = _open_one(path, chunks)
-        found = _find_member_dim(part, member_dim)
+        lazy = _open_lazy(path)
+        found = _find_member_dim(lazy, member_dim)
         if found is not None:
-            if part.sizes[found] != 1:
+            if lazy.sizes[found] != 1:
                 raise CoordinateError.make(
                     f"file {str(path)!r}",
-                    f"{part.sizes[found]} members along {found!r}",
+                    f"{lazy.sizes[found]} members along {found!r}",
                     "one member per file when several files are given",
                     "pass one file holding all members, or one file per member",
                 )
-            part = part.isel({found: 0}, drop=True)
-        parts.append(part)
+            lazy = lazy.isel({found: 0}, drop=True)
+        lazies.append(lazy)
+        parts.append(_chunked(lazy, chunks))
     try:
         merged = xr.concat(
             parts, dim="member", data_vars="all", coords="minimal", compat="override", join="exact"
@@ -224,8 +237,51 @@ def _read(source, *, chunks, member_dim):
     if isinstance(chunks, Mapping) and "member" in chunks:
         # one file per member gives one chunk per member; group them as asked, so reductions
         # over the ensemble work on a few large chunks instead of thousands of small ones
-        merged = merged.chunk({"member": chunks["member"]})
+        merged = _grouped(merged, lazies, int(chunks["member"])).chunk(
+            {k: v for k, v in chunks.items() if k in merged.dims}
+        )
     return merged, f"{len(paths)} files like {str(paths[0])!r}", paths
+
+
+def _grouped(merged: xr.Dataset, lazies: list[xr.Dataset], size: int) -> xr.Dataset:
+    """`merged` with every numeric per-member variable read by one task per group of `size`
+    member files (`lazies`: the files opened without dask).
+
+    Concatenating lazily opened files makes one task per file and variable, then merges them
+    into groups: thousands of tiny tasks for a large ensemble, whose overhead dominates on a
+    cluster. Here each group of member files is one chunk read by one task, through the same
+    lazy (decoded, locked) reads; a selection made later (a sector, a level) is still read
+    alone, as dask hands the combined slice to the reader.
+    """
+    import dask.array as da
+
+    out = merged.copy()
+    for name, var in merged.data_vars.items():
+        if var.dims[:1] != ("member",) or var.dtype.kind not in "fiu":
+            continue  # numeric fields only (times and bounds stay as opened)
+        stacked = _MemberStack([lazy[name].variable for lazy in lazies], var.dtype)
+        data = da.from_array(stacked, chunks=(size, *var.shape[1:]), asarray=False)
+        out[name] = var.copy(data=data)
+    return out
+
+
+class _MemberStack:
+    """Several member files' lazily opened variable seen as one (member, ...) array: indexing
+    with slices reads only the selected part of each selected file."""
+
+    def __init__(self, variables: list[xr.Variable], dtype) -> None:
+        self.variables = variables
+        self.dtype = np.dtype(dtype)
+        self.shape = (len(variables), *variables[0].shape)
+        self.ndim = len(self.shape)
+
+    def __getitem__(self, key) -> np.ndarray:
+        key = key if isinstance(key, tuple) else (key,)
+        first, rest = key[0], key[1:]
+        picked = [self.variables[i] for i in np.arange(len(self.variables))[first].ravel()]
+        values = [np.asarray(v[rest].values, dtype=self.dtype) for v in picked]
+        stacked = np.stack(values) if values else np.empty((0, *self.shape[1:]), self.dtype)
+        return stacked[0] if np.ndim(first) == 0 and not isinstance(first, slice) else stacked
 
 
 # ---------------------------------------------------------------------------- coordinates

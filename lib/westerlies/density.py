@@ -83,25 +83,78 @@ def _linear_bins(x: np.ndarray, start: int, step: float, n_bins: int, weights=No
     return np.bincount(left, w * (1 - frac), n_bins) + np.bincount(left + 1, w * frac, n_bins)
 
 
+# Transfer-function terms below exp(-_NEGLIGIBLE) = 2e-22 of the zero-frequency term are dropped.
+_NEGLIGIBLE = 50.0
+
+
+def _fft_length(n_bins: int, max_bandwidth: float, step: float) -> int:
+    """FFT length for `n_bins` bins: zero padding of 6 bandwidths keeps the convolution linear."""
+    half = int(np.ceil(6 * max_bandwidth / step))
+    return fft.next_fast_len(n_bins + 2 * half + 1, real=True)
+
+
+def _n_frequencies(min_bandwidth: float, n_fft: int, step: float) -> int:
+    """Number of rfft frequencies f_j = j / (n_fft step) with 2 pi^2 h^2 f_j^2 <= _NEGLIGIBLE."""
+    f_max = np.sqrt(_NEGLIGIBLE / 2) / (np.pi * min_bandwidth)
+    return min(n_fft // 2 + 1, int(f_max * n_fft * step) + 2)
+
+
+def _transfer(bandwidth: np.ndarray, n_fft: int, step: float, n_freq: int) -> np.ndarray:
+    """DFT of the Gaussian kernel sampled every `step`, at the first `n_freq` rfft frequencies.
+
+    Exactly it is sum_m G(f + m / step) with G(f) = exp(-2 pi^2 h^2 f^2) (the aliases of the
+    continuous transform). For 0 <= f <= 1 / (2 step) and h >= 2 step only m = 0 and m = -1
+    matter: |f + m / step| >= 1 / step for every other m, so those terms are below
+    exp(-8 pi^2) = 5e-35. The m = -1 term reaches exp(-pi^2 h^2 / (2 step^2)) at the Nyquist
+    frequency (3e-9 at h = 2 step), so it is kept. Frequencies where G(f) < exp(-_NEGLIGIBLE)
+    are not computed (the alias is smaller than G there). Since |spectrum| <= total count, the
+    density per unit x then changes by at most 2 (exp(-50) + 2 x 5e-35) / step, about 1e-21
+    per degree on a 0.1-degree grid, far below FFT round-off (1e-16 of the maximum).
+    `bandwidth` has the leading shape; the result has shape bandwidth.shape + (n_freq,).
+    """
+    h = np.asarray(bandwidth, dtype=float)[..., None]
+    freq = np.arange(n_freq) * (1.0 / (n_fft * step))  # as scipy.fft.rfftfreq
+    return np.exp(-2 * np.pi**2 * (h * (freq - 1 / step)) ** 2) + np.exp(
+        -2 * np.pi**2 * (h * freq) ** 2
+    )
+
+
+#: Values per FFT pass (rows x FFT length): small arrays reused across passes are much
+#: cheaper than fresh large ones.
+_FFT_VALUES = 2**16
+
+
 def _smooth(counts: np.ndarray, bandwidth: np.ndarray | float, step: float) -> np.ndarray:
     """Gaussian kernel density (per unit x) from binned counts along the last axis.
 
-    `bandwidth` scalar or one per row (shape counts.shape[:-1]), at least `step`. The transfer
-    function is the exact DFT of the sampled kernel (the Gaussian's transform summed over its
-    aliases), so the result is the discrete convolution of the counts with K_h(j step); the
-    zero padding keeps the circular convolution from wrapping.
+    `bandwidth` scalar or one per row (shape counts.shape[:-1]), at least 2 `step`. The result
+    is the discrete convolution of the counts with K_h(j step) (see `_transfer` for the sampled
+    kernel's DFT and what is neglected); the zero padding keeps the circular convolution from
+    wrapping. Rows are transformed a few at a time through reused zero-padded buffers.
     """
     n_bins = counts.shape[-1]
     h = np.asarray(bandwidth, dtype=float)
-    half = int(np.ceil(6 * np.max(h) / step))
-    n_fft = fft.next_fast_len(n_bins + 2 * half + 1, real=True)
-    spectrum = fft.rfft(counts, n_fft, axis=-1)
-    freq = fft.rfftfreq(n_fft, d=step)
-    alias = freq[:, None] + np.arange(-2, 3) / step  # (freq, alias); 2 aliases suffice for h>=step
-    transfer = np.exp(-2 * np.pi**2 * (h[..., None, None] * alias) ** 2).sum(axis=-1)
-    dens = fft.irfft(spectrum * transfer, n_fft, axis=-1)[..., :n_bins]
-    total = counts.sum(axis=-1, keepdims=True)
-    return dens / (total * step)
+    n_fft = _fft_length(n_bins, float(np.max(h)), step)
+    n_freq = _n_frequencies(float(np.min(h)), n_fft, step)
+    rows = counts.reshape(-1, n_bins)
+    out = np.empty(rows.shape)
+    chunk = max(1, _FFT_VALUES // n_fft)
+    padded = np.zeros((min(chunk, rows.shape[0]), n_fft))
+    spectrum = np.zeros((padded.shape[0], n_fft // 2 + 1), dtype=complex)  # zero above n_freq
+    if h.ndim == 0:
+        transfer = _transfer(h, n_fft, step, n_freq)
+    else:
+        row_h = np.broadcast_to(h, counts.shape[:-1]).reshape(-1)
+    for a in range(0, rows.shape[0], chunk):
+        part = rows[a : a + chunk]
+        m = part.shape[0]
+        if h.ndim:
+            transfer = _transfer(row_h[a : a + m], n_fft, step, n_freq)
+        padded[:m, :n_bins] = part
+        np.multiply(fft.rfft(padded[:m], axis=-1)[:, :n_freq], transfer, out=spectrum[:m, :n_freq])
+        dens = fft.irfft(spectrum[:m], n_fft, axis=-1)[:, :n_bins]
+        np.divide(dens, part.sum(axis=-1, keepdims=True) * step, out=out[a : a + m])
+    return out.reshape(counts.shape)
 
 
 def _count_modes(dens: np.ndarray, first: int, last: int) -> np.ndarray:
@@ -121,23 +174,59 @@ def _critical_bandwidth(
     step: float,
     window: tuple[int, int],
     rtol: float = 1e-4,
+    settle: tuple[float, np.ndarray] | None = None,
 ) -> np.ndarray:
     """Smallest bandwidth at which each row's density has at most `k` modes, by bisection.
 
-    Rows whose density has at most k modes at `low` get `low`; rows with more than k modes at
-    `high` get `high` (the caller chooses `high` large enough or treats it as 'above').
+    `counts` is (rows, bins). Rows whose density has at most k modes at `low` get `low`; rows
+    with more than k modes at `high` get `high` (the caller chooses `high` large enough or
+    treats it as 'above'). The counts are transformed once; each bisection step only applies
+    the transfer function of its bandwidths and transforms back. Only the bins between the
+    first and last nonzero count (and the window) are kept: the density elsewhere is lower
+    than at the nearest kept bin, so neither the mode count nor the row maximum changes.
+
+    settle : (reference, thresholds), thresholds sorted. If given, a row stops as soon as no
+        threshold t satisfies lo / reference <= t <= hi / reference for its bracket [lo, hi];
+        its result is then the current hi. The full bisection's result lies in (lo, hi], so
+        every comparison `result / reference >= t` comes out as with the full bisection; only
+        use the result for such comparisons.
     """
-    rows = counts.shape[:-1]
-    lo = np.broadcast_to(np.asarray(low, dtype=float), rows).copy()
-    hi = np.broadcast_to(np.asarray(high, dtype=float), rows).copy()
-    ok_lo = _count_modes(_smooth(counts, lo, step), *window) <= k
+    n_rows = counts.shape[0]
+    lo = np.broadcast_to(np.asarray(low, dtype=float), (n_rows,)).copy()
+    hi = np.broadcast_to(np.asarray(high, dtype=float), (n_rows,)).copy()
+    used = np.flatnonzero(counts.any(axis=0))
+    keep_lo = min(int(used[0]), window[0] - 1) if used.size else window[0] - 1
+    keep_hi = max(int(used[-1]), window[1] + 1) if used.size else window[1] + 1
+    counts = counts[:, keep_lo : keep_hi + 1]
+    first, last = window[0] - keep_lo, window[1] - keep_lo
+    n_keep = counts.shape[1]
+    n_fft = _fft_length(n_keep, float(max(hi.max(), lo.max())), step)
+    n_freq = _n_frequencies(float(min(lo.min(), hi.min())), n_fft, step)
+    spectrum = fft.rfft(counts, n_fft, axis=-1)[:, :n_freq]
+    norm = counts.sum(axis=-1) * step
+
+    def at_most_k(rows: np.ndarray, h: np.ndarray) -> np.ndarray:
+        dens = fft.irfft(spectrum[rows] * _transfer(h, n_fft, step, n_freq), n_fft, axis=-1)
+        dens = dens[:, :n_keep] / norm[rows, None]
+        return _count_modes(dens, first, last) <= k
+
+    everything = np.arange(n_rows)
+    ok_lo = at_most_k(everything, lo)
     n_iter = int(np.ceil(np.log2(np.log(np.max(hi / lo)) / np.log1p(rtol)))) + 1
+    active = np.flatnonzero(~ok_lo) if settle is not None else everything
     for _ in range(max(n_iter, 1)):
-        mid = np.sqrt(lo * hi)
-        ok = _count_modes(_smooth(counts, mid, step), *window) <= k
-        hi = np.where(ok, mid, hi)
-        lo = np.where(ok, lo, mid)
-    return np.where(ok_lo, np.broadcast_to(np.asarray(low, dtype=float), rows), hi)
+        if settle is not None:
+            reference, thresholds = settle
+            below = np.searchsorted(thresholds, lo[active] / reference, side="left")
+            above = np.searchsorted(thresholds, hi[active] / reference, side="right")
+            active = active[below < above]
+        if not active.size:
+            break
+        mid = np.sqrt(lo[active] * hi[active])
+        ok = at_most_k(active, mid)
+        hi[active] = np.where(ok, mid, hi[active])
+        lo[active] = np.where(ok, lo[active], mid)
+    return np.where(ok_lo, np.broadcast_to(np.asarray(low, dtype=float), (n_rows,)), hi)
 
 
 def _refine(grid: np.ndarray, dens: np.ndarray, i: int) -> tuple[float, float]:
@@ -153,24 +242,130 @@ def _refine(grid: np.ndarray, dens: np.ndarray, i: int) -> tuple[float, float]:
     return float(grid[i] + shift * step), float(y1 - 0.25 * (y0 - y2) * shift)
 
 
+def _refine_peaks(
+    grid: np.ndarray, dens: np.ndarray, rows: np.ndarray, idx: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """`_refine` at interior bins `idx` of rows `rows` of a 2-D `dens`: same arithmetic."""
+    y0, y1, y2 = dens[rows, idx - 1], dens[rows, idx], dens[rows, idx + 1]
+    denom = y0 - 2 * y1 + y2
+    flat = denom == 0
+    shift = 0.5 * (y0 - y2) / np.where(flat, 1.0, denom)
+    step = grid[1] - grid[0]
+    pos = np.where(flat, grid[idx], grid[idx] + shift * step)
+    value = np.where(flat, y1, y1 - 0.25 * (y0 - y2) * shift)
+    return pos, value
+
+
+def _prominences(dens: np.ndarray, rows: np.ndarray, idx: np.ndarray) -> np.ndarray:
+    """Prominence of the strict local maxima (rows, idx) of a 2-D `dens`, given (in row, then
+    bin order) every strict local maximum of each row that is at least as high as any of them.
+
+    A peak's base on one side is the lowest point before higher ground (or the row's end).
+    The higher ground nearest to a peak is always another listed maximum: between the lowest
+    point and that ground, the highest point is a strict local maximum above the peak (rows
+    with flat tops are excluded by the caller). So each base is the minimum of the stretches
+    between neighbouring listed maxima, up to the nearest higher one.
+    """
+    n_rows, n = dens.shape
+    per_row = np.bincount(rows, minlength=n_rows)
+    first = np.cumsum(per_row) - per_row  # index of each row's first maximum
+    col = np.arange(rows.size) - first[rows]
+    width = int(per_row.max())
+    # Minimum of the stretches [0, c_0), [c_0, c_1), ..., [c_last, n) of every row.
+    starts = np.sort(np.concatenate([np.arange(n_rows) * n, rows * n + idx]))
+    stretch = np.minimum.reduceat(dens.ravel(), starts)
+    bases = np.full((n_rows, width + 1), np.inf)
+    bases[:, 0] = stretch[first + np.arange(n_rows)]
+    bases[rows, col + 1] = stretch[first[rows] + rows + col + 1]
+    heights = np.full((n_rows, width), -np.inf)
+    heights[rows, col] = dens[rows, idx]
+    out = np.empty(rows.size)
+    t = np.arange(width)
+    s = np.arange(width + 1)
+    chunk = max(1, 2**20 // (width + 1) ** 2)  # rows per pass, bounds the (r, t, s) arrays
+    for lo in range(0, n_rows, chunk):
+        h, b = heights[lo : lo + chunk], bases[lo : lo + chunk]
+        higher = h[:, None, :] > h[:, :, None]  # [r, t, u]: maximum u is above maximum t
+        left = np.where(higher & (t < t[:, None]), t, -1).max(axis=2)
+        right = np.where(higher & (t > t[:, None]), t, width).min(axis=2)
+        right = np.minimum(right, per_row[lo : lo + chunk, None])
+        inside = (s > left[..., None]) & (s <= t[:, None])  # stretches left_higher+1 .. t
+        left_min = np.where(inside, b[:, None, :], np.inf).min(axis=2)
+        inside = (s > t[:, None]) & (s <= right[..., None])  # stretches t+1 .. right_higher
+        right_min = np.where(inside, b[:, None, :], np.inf).min(axis=2)
+        prominence = h - np.maximum(left_min, right_min)
+        sel = (rows >= lo) & (rows < lo + chunk)
+        out[sel] = prominence[rows[sel] - lo, col[sel]]
+    return out
+
+
+def _prominent_peaks(dens: np.ndarray, min_prominence: float) -> tuple[np.ndarray, np.ndarray]:
+    """Rows and bins of the local maxima with prominence >= `min_prominence` x the row maximum.
+
+    The rule of `scipy.signal.find_peaks(row, prominence=min_prominence * row.max())` on every
+    row of a 2-D array, vectorized (see `_prominences`). A prominence is at most the height
+    above the row minimum, so only strict local maxima at least the threshold above it are
+    candidates. Rows with two equal neighbouring values that high (a flat top, which
+    find_peaks reports once at its middle) go through find_peaks itself. Results are in row,
+    then bin order.
+    """
+    dens = np.ascontiguousarray(dens)
+    n_rows, n = dens.shape
+    flat = dens.ravel()  # neighbours compared along the flattened rows: much faster than 2-D
+    top, bottom = dens.max(axis=1), dens.min(axis=1)
+    threshold = min_prominence * top
+    mid = flat[1:-1]
+    idx = np.flatnonzero((mid > flat[:-2]) & (mid > flat[2:])) + 1
+    rows, idx = np.divmod(idx, n)
+    keep = (idx > 0) & (idx < n - 1)  # not across a row boundary
+    keep &= (dens[rows, idx] - bottom[rows]) >= threshold[rows]
+    rows, idx = rows[keep], idx[keep]
+    flat_top = np.zeros(n_rows, dtype=bool)
+    same = flat[1:] == flat[:-1]
+    if same.any():
+        at_rows, at = np.divmod(np.flatnonzero(same), n)
+        high = (at < n - 1) & ((dens[at_rows, at] - bottom[at_rows]) >= threshold[at_rows])
+        flat_top[at_rows[high]] = True
+        keep = ~flat_top[rows]
+        rows, idx = rows[keep], idx[keep]
+    if rows.size:
+        keep = _prominences(dens, rows, idx) >= threshold[rows]
+        rows, idx = rows[keep], idx[keep]
+    if flat_top.any():
+        found = [
+            (r, signal.find_peaks(dens[r], prominence=threshold[r])[0])
+            for r in np.flatnonzero(flat_top)
+        ]
+        rows = np.concatenate([rows, *(np.full(p.size, r) for r, p in found)])
+        idx = np.concatenate([idx, *(p for _, p in found)])
+        order = np.lexsort((idx, rows))
+        rows, idx = rows[order], idx[order]
+    return rows, idx
+
+
 def _find_modes(dens: np.ndarray, min_prominence: float) -> np.ndarray:
     """Indices of local maxima whose prominence is at least `min_prominence` x the maximum."""
-    peaks, _ = signal.find_peaks(dens, prominence=min_prominence * dens.max())
-    return peaks
+    return _prominent_peaks(dens[None, :], min_prominence)[1]
 
 
 def _basin_modes(
     dens: np.ndarray, centres: np.ndarray, edges: np.ndarray, min_prominence: float
 ) -> np.ndarray:
-    """Per row: the latitude of the highest qualifying peak in each basin between `edges`."""
-    out = np.full((dens.shape[0], edges.size - 1), np.nan)
-    for r in range(dens.shape[0]):
-        best = np.full(edges.size - 1, -np.inf)
-        for i in _find_modes(dens[r], min_prominence):
-            pos, value = _refine(centres, dens[r], i)
-            m = int(np.searchsorted(edges, pos) - 1)
-            if value > best[m]:
-                best[m], out[r, m] = value, pos
+    """Per row: the latitude of the highest qualifying peak in each basin between `edges`.
+
+    Ties go to the southmost peak.
+    """
+    n_basins = edges.size - 1
+    out = np.full((dens.shape[0], n_basins), np.nan)
+    rows, idx = _prominent_peaks(dens, min_prominence)
+    pos, value = _refine_peaks(centres, dens, rows, idx)
+    basin = np.searchsorted(edges, pos) - 1
+    # Highest value first within each (row, basin); lexsort is stable, so ties keep bin order.
+    order = np.lexsort((-value, basin, rows))
+    rows, basin, pos = rows[order], basin[order], pos[order]
+    first = np.ones(rows.size, dtype=bool)
+    first[1:] = (rows[1:] != rows[:-1]) | (basin[1:] != basin[:-1])
+    out[rows[first], basin[first]] = pos[first]
     return out
 
 
@@ -419,6 +614,80 @@ class JetModes:
 # --- the public function ---------------------------------------------------------------------
 
 
+#: Days per pass of the smoothed bootstrap (several replicates when they are short).
+_PASS_DAYS = 2**16
+#: Replicates per batch of critical-bandwidth bisections.
+_BATCH = 250
+
+
+def _smoothed_bootstrap_counts(
+    x: np.ndarray,
+    blocks: np.ndarray,
+    n_blocks: int,
+    n_rows: int,
+    rng: np.random.Generator,
+    *,
+    h: float,
+    start: int,
+    step: float,
+    n_bins: int,
+) -> np.ndarray:
+    """(n_rows, n_bins) linear-binned smoothed-bootstrap samples (see `_mode_test`, step 2).
+
+    Per replicate, in this order from `rng`: the drawn blocks, then one float32 N(0, 1) per
+    day. The arithmetic is that of `y = mean + (x - mean + h eps) / scale` followed by
+    `_linear_bins(y, ...)`, operation for operation (so the same numbers), but in place on
+    buffers reused across replicates (fresh large arrays cost more than the arithmetic).
+    """
+    h = float(h)  # a Python float keeps h * float32 noise in float32, as in `h * eps`
+    mean, var = x.mean(), x.var(ddof=1)
+    scale = np.sqrt(1 + h**2 / var)
+    centred = x - mean
+    out = np.empty((n_rows, n_bins))
+    per_pass = max(1, _PASS_DAYS // max(x.size, 1))
+    size = 2 * per_pass * x.size  # grown below if the drawn blocks hold more days
+    y, noise, term = np.empty(size), np.empty(size, dtype=np.float32), np.empty(size, np.float32)
+    frac, left = np.empty(size), np.empty(size, dtype=np.intp)
+    repeats = np.empty(x.size, dtype=np.intp)
+    for first in range(0, n_rows, per_pass):
+        ends = [0]
+        for _ in range(min(per_pass, n_rows - first)):
+            # Whole blocks with replacement: each day repeated as often as its block is drawn.
+            drawn = np.bincount(rng.integers(0, n_blocks, n_blocks), minlength=n_blocks)
+            np.take(drawn, blocks, out=repeats)
+            at, end = ends[-1], ends[-1] + int(repeats.sum())
+            if end > y.size:
+                y, noise = np.resize(y, 2 * end), np.resize(noise, 2 * end)  # keeps the start
+                term, frac = np.empty(2 * end, np.float32), np.empty(2 * end)
+                left = np.empty(2 * end, dtype=np.intp)
+            for a in range(0, x.size, 2**15):  # pieces, to keep the temporary small
+                part = np.repeat(centred[a : a + 2**15], repeats[a : a + 2**15])
+                y[at : at + part.size] = part
+                at += part.size
+            rng.standard_normal(out=noise[ends[-1] : end], dtype=np.float32)
+            ends.append(end)
+        v, m = y[: ends[-1]], ends[-1]
+        v += np.multiply(noise[:m], h, out=term[:m])
+        v /= scale
+        v += mean  # y = mean + (x - mean + h eps) / scale
+        v /= step  # then as `_linear_bins`: position in bins, clipped
+        v -= start
+        np.clip(v, 0, n_bins - 1 - 1e-9, out=v)
+        np.copyto(left[:m], v, casting="unsafe")  # truncation = floor, positions are >= 0
+        np.subtract(v, left[:m], out=frac[:m])
+        rest = np.subtract(1, frac[:m], out=v)  # weight of the left bin
+        # All replicates of the pass in one histogram: row r's bins are offset by r n_bins.
+        for r, (a, b) in enumerate(itertools.pairwise(ends)):
+            left[a:b] += r * n_bins
+        n_out = (len(ends) - 1) * n_bins
+        hist = np.bincount(left[:m], rest, n_out)
+        # bincount(left + 1, frac) is bincount(left, frac) moved up one bin, the same sums
+        # (left <= n_bins - 2 within a row, so nothing moves into the next row).
+        hist[1:] += np.bincount(left[:m], frac[:m], n_out)[:-1]
+        out[first : first + len(ends) - 1] = hist.reshape(-1, n_bins)
+    return out
+
+
 def _mode_test(
     x: np.ndarray,
     blocks: np.ndarray,
@@ -451,24 +720,20 @@ def _mode_test(
     h_k = float(_critical_bandwidth(counts, k, 2 * step, h_hi, step, window)[0])
     if n_resamples == 0 or n_blocks < 2:
         return h_k, np.nan, np.nan
-    mean, var = x.mean(), x.var(ddof=1)
-    scale = np.sqrt(1 + h_k**2 / var)
     lam = hall_york_lambda(alphas)
     low, high = max(2 * step, 0.9 * h_k * lam.min()), 1.1 * h_k * lam.max()
+    # The p-values only compare h*_k / h_k with 1 and the lambda grid: stop bisecting a
+    # replicate once those comparisons are settled.
+    settle = (h_k, np.unique(np.append(lam, 1.0)))
     ratios = np.empty(n_resamples)
-    chunk = 50
-    for first in range(0, n_resamples, chunk):
-        rows = []
-        for _ in range(min(chunk, n_resamples - first)):
-            # Whole blocks with replacement: each day repeated as often as its block is drawn.
-            drawn = np.bincount(rng.integers(0, n_blocks, n_blocks), minlength=n_blocks)
-            resampled = np.repeat(x, drawn[blocks])
-            noise = rng.standard_normal(resampled.size, dtype=np.float32)
-            y = mean + (resampled - mean + h_k * noise) / scale
-            rows.append(_linear_bins(y, start, step, n_bins))
-        h_star = _critical_bandwidth(np.array(rows), k, low, high, step, window)
+    for first in range(0, n_resamples, _BATCH):
+        n = min(_BATCH, n_resamples - first)
+        rows = _smoothed_bootstrap_counts(
+            x, blocks, n_blocks, n, rng, h=h_k, start=start, step=step, n_bins=n_bins
+        )
+        h_star = _critical_bandwidth(rows, k, low, high, step, window, settle=settle)
         # h* reported at `low` means 'at most k modes at low', i.e. below every threshold.
-        ratios[first : first + len(rows)] = np.where(h_star <= low, 0.0, h_star / h_k)
+        ratios[first : first + n] = np.where(h_star <= low, 0.0, h_star / h_k)
     p_silverman = (1 + np.sum(ratios >= 1)) / (n_resamples + 1)
     q = (1 + np.sum(ratios[None, :] >= lam[:, None], axis=1)) / (n_resamples + 1)
     reject = np.flatnonzero(q <= alphas)
@@ -592,7 +857,7 @@ def jet_modes(
     if n_resamples and n_blocks >= 2:
         weights = rng.multinomial(n_blocks, np.full(n_blocks, 1 / n_blocks), size=n_resamples)
         replicate = _smooth(weights @ block_counts, h, resolution)
-        band = np.quantile(replicate, [tail, 1 - tail], axis=0)
+        band[:, out_idx] = np.quantile(replicate[:, out_idx], [tail, 1 - tail], axis=0)
         edges = np.concatenate([[-np.inf], minima_pos, [np.inf]])
         found = _basin_modes(replicate, centres, edges, min_prominence)  # per fitted basin
         support = np.mean(np.isfinite(found), axis=0)

@@ -132,15 +132,9 @@ def _say(progress, text: str) -> None:
 
 
 def _write_all(comparison: Reportable, work: Path, formats, dpi: int, progress) -> None:
-    from . import figures
-
     (work / "figures").mkdir()
     (work / "tables").mkdir()
-    shown: list[tuple[str, str, Path]] = []
-    for name, caption, fig in comparison.figures():
-        _say(progress, f"figure {name}")
-        figures.save(fig, work / "figures" / f"{name}.png", formats=formats, dpi=dpi)
-        shown.append((name, caption, work / "figures" / f"{name}.png"))
+    shown = _draw_figures(comparison, work / "figures", formats, dpi, progress)
     tables = comparison.tables()
     for name, table in tables.items():
         table.to_csv(work / "tables" / f"{name}.csv", index=False)
@@ -150,6 +144,64 @@ def _write_all(comparison: Reportable, work: Path, formats, dpi: int, progress) 
     _write_json(work / "provenance.json", provenance)
     page = _html(comparison.summary, shown, comparison.methods(), provenance)
     (work / "report.html").write_text(page, encoding="utf-8")
+
+
+def _draw_figures(comparison, where: Path, formats, dpi: int, progress) -> list:
+    """Draw and save every figure; (name, caption, png path) in figure order.
+
+    On a dask.distributed cluster the figures are drawn by the workers (each returns its
+    files' bytes, written here), otherwise here, one at a time (matplotlib's font and text
+    caches are not safe to share between threads).
+    """
+    from . import figures
+    from .report_figures import figure_recipes
+
+    recipes = list(figure_recipes(comparison))
+    client = _cluster_client()
+    if client is None:
+        for name, _, make in recipes:
+            _say(progress, f"figure {name}")
+            figures.save(make(), where / f"{name}.png", formats=formats, dpi=dpi)
+    else:
+        _say(progress, f"drawing {len(recipes)} figures on the cluster")
+        futures = client.map(
+            _drawn, [make for _, _, make in recipes], formats=formats, dpi=dpi, pure=False
+        )
+        for (name, _, _), future in zip(recipes, futures, strict=True):
+            for fmt, data in future.result().items():
+                (where / f"{name}.{fmt}").write_bytes(data)  # the set is published whole
+    return [(name, caption, where / f"{name}.png") for name, caption, _ in recipes]
+
+
+def _cluster_client():
+    """The dask.distributed client dask would use now, or None (threads, or no distributed)."""
+    import dask.base
+
+    get = dask.base.get_scheduler()
+    owner = getattr(get, "__self__", None)
+    try:
+        from distributed import Client
+    except ImportError:
+        return None
+    return owner if isinstance(owner, Client) else None
+
+
+def _drawn(make, formats, dpi: int) -> dict[str, bytes]:
+    """Draw one figure and return its files' contents by format (runs on a worker)."""
+    import io
+
+    from .figures._common import close
+
+    fig = make()
+    try:
+        out = {}
+        for fmt in formats:
+            buffer = io.BytesIO()
+            fig.savefig(buffer, format=fmt, dpi=dpi)
+            out[fmt] = buffer.getvalue()
+        return out
+    finally:
+        close(fig)
 
 
 def _clean(value: Any) -> Any:

@@ -2,7 +2,8 @@
 
 from __future__ import annotations
 
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
+from functools import partial
 from typing import Any
 
 import numpy as np
@@ -31,6 +32,13 @@ def _summary_values(summary, diagnostic: str, prefix: str, labels, names, versus
 
 def figure_set(comparison) -> Iterator[tuple[str, str, Any]]:
     """Yield (file name, caption, Figure) for every figure, one at a time (memory stays low)."""
+    for name, caption, make in figure_recipes(comparison):
+        yield name, caption, make()
+
+
+def figure_recipes(comparison) -> Iterator[tuple[str, str, Callable[[], Any]]]:
+    """Yield (file name, caption, make) for every figure: ``make()`` draws it from data already
+    gathered, so figures can be drawn anywhere (e.g. on a cluster's workers), one at a time."""
     from . import figures
 
     d = comparison.details
@@ -58,7 +66,7 @@ def figure_set(comparison) -> Iterator[tuple[str, str, Any]]:
         "nao_patterns",
         "NAO patterns: each dataset's own leading EOF as a regression map, "
         "with its pattern correlation with the fitted NAO and its variance fraction",
-        figures.nao_patterns(patterns, pattern_correlation=corr, variance_fraction=frac),
+        partial(figures.nao_patterns, patterns, pattern_correlation=corr, variance_fraction=frac),
     )
 
     maps = comparison.maps
@@ -71,13 +79,15 @@ def figure_set(comparison) -> Iterator[tuple[str, str, Any]]:
                 f"z500_{kind}",
                 f"Season-mean Z500 {kind}: dataset minus {versus}; stippling "
                 "where significant after FDR control",
-                figures.difference_maps(diff.assign_attrs(maps[kind].attrs), sig, kind=kind),
+                partial(
+                    figures.difference_maps, diff.assign_attrs(maps[kind].attrs), sig, kind=kind
+                ),
             )
 
     yield (
         "nao_index_distributions",
         "Distributions of the daily NAO index (units of the fitting dataset's standard deviation)",
-        figures.index_distributions(dict(d["nao_index"]), colors=colors),
+        partial(figures.index_distributions, dict(d["nao_index"]), colors=colors),
     )
 
     if comparison.jet_modes is not None:
@@ -92,7 +102,8 @@ def figure_set(comparison) -> Iterator[tuple[str, str, Any]]:
             "jet_latitude_densities",
             "Kernel densities of daily jet latitude with "
             "block-bootstrap bands, modes and the category bounds of the fitting dataset",
-            figures.jet_densities(
+            partial(
+                figures.jet_densities,
                 density,
                 low,
                 high,
@@ -105,7 +116,8 @@ def figure_set(comparison) -> Iterator[tuple[str, str, Any]]:
         yield (
             "jet_latitude_speed",
             "Daily jet latitude against jet speed",
-            figures.jet_latitude_speed(
+            partial(
+                figures.jet_latitude_speed,
                 {k: v["latitude"].values.ravel() for k, v in jet.items()},
                 {k: v["speed"].values.ravel() for k, v in jet.items()},
                 colors=colors,
@@ -115,8 +127,16 @@ def figure_set(comparison) -> Iterator[tuple[str, str, Any]]:
         yield (
             "jet_category_occupancy",
             "Occupancy of the jet position categories",
-            _occupancy_figure(
-                figures, summary, "jet", labels, names, comparison.baseline, alpha, colors
+            partial(
+                _occupancy_figure,
+                figures,
+                summary,
+                "jet",
+                labels,
+                names,
+                comparison.baseline,
+                alpha,
+                colors,
             ),
         )
 
@@ -134,14 +154,22 @@ def figure_set(comparison) -> Iterator[tuple[str, str, Any]]:
             "regime_patterns",
             "Weather regime centroids: the fitted regimes and each "
             "dataset's own regimes matched to them, with occupancies",
-            figures.regime_maps(centroids.assign_attrs(units="m"), occ_da),
+            partial(figures.regime_maps, centroids.assign_attrs(units="m"), occ_da),
         )
         yield (
             "regime_occupancy",
             "Regime occupancy with 95% block-bootstrap intervals; "
             "asterisks mark significant differences from the baseline",
-            _occupancy_figure(
-                figures, summary, "regimes", labels, names, comparison.baseline, alpha, colors
+            partial(
+                _occupancy_figure,
+                figures,
+                summary,
+                "regimes",
+                labels,
+                names,
+                comparison.baseline,
+                alpha,
+                colors,
             ),
         )
         from .regime_stats import episodes
@@ -152,7 +180,7 @@ def figure_set(comparison) -> Iterator[tuple[str, str, Any]]:
         yield (
             "regime_persistence",
             "Survival curves of regime episode lengths",
-            figures.persistence_survival(surv, colors=colors),
+            partial(figures.persistence_survival, surv, colors=colors),
         )
 
     if "acf" in d:
@@ -161,8 +189,13 @@ def figure_set(comparison) -> Iterator[tuple[str, str, Any]]:
             "index_memory",
             "Autocorrelation functions of the daily indices with 95% "
             "block-bootstrap bands and e-folding times",
-            figures.memory_functions(
-                d["acf"], d["acf_low"], d["acf_high"], efolding=eff, colors=colors
+            partial(
+                figures.memory_functions,
+                d["acf"],
+                d["acf_low"],
+                d["acf_high"],
+                efolding=eff,
+                colors=colors,
             ),
         )
     if d.get("ccf"):
@@ -170,15 +203,20 @@ def figure_set(comparison) -> Iterator[tuple[str, str, Any]]:
         yield (
             "nao_sst_cross_correlation",
             "Cross-correlation of the NAO with the SST tripole index",
-            figures.cross_correlation(
-                c["ccf"], c["low"], c["high"], title="NAO and SST tripole index", colors=colors
+            partial(
+                figures.cross_correlation,
+                c["ccf"],
+                c["low"],
+                c["high"],
+                title="NAO and SST tripole index",
+                colors=colors,
             ),
         )
     yield (
         "scorecard",
         "Scorecard: every quantity for each dataset; shaded where significantly "
         "different from the baseline or the reference",
-        figures.scorecard(summary),
+        partial(figures.scorecard, summary),
     )
 
 
