@@ -9,7 +9,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import xarray as xr
-from scipy import optimize, stats
+from scipy import fft, optimize, signal, stats
 
 from westerlies.density import hall_york_lambda, jet_modes, silverman_bandwidth
 from westerlies.errors import ConfigError, InputError, InputWarning, MissingValueError
@@ -216,3 +216,227 @@ def test_mode_latitudes_through_the_resampling_engine():
     assert (test["statistic"].values < -0.5).all() and (test["p_value"].values < 0.05).all()
     same = permutation_test(first, _latitudes(_mixture(rng)), stat, n_resamples=199, seed=3)
     assert (same["p_value"].values > 0.01).all()
+
+
+# --- the fast kernels against straightforward reference implementations --------------------
+# The references below are the earlier, plainly written kernels (a find_peaks loop per
+# replicate, the full alias sum, a full bisection and one replicate at a time); the fast paths
+# must give the same numbers.
+
+
+def _reference_smooth(counts, bandwidth, step):
+    """Transfer function summed over the aliases m = -2..2, FFT length per call."""
+    n_bins = counts.shape[-1]
+    h = np.asarray(bandwidth, dtype=float)
+    half = int(np.ceil(6 * np.max(h) / step))
+    n_fft = fft.next_fast_len(n_bins + 2 * half + 1, real=True)
+    spectrum = fft.rfft(counts, n_fft, axis=-1)
+    alias = fft.rfftfreq(n_fft, d=step)[:, None] + np.arange(-2, 3) / step
+    transfer = np.exp(-2 * np.pi**2 * (h[..., None, None] * alias) ** 2).sum(axis=-1)
+    dens = fft.irfft(spectrum * transfer, n_fft, axis=-1)[..., :n_bins]
+    return dens / (counts.sum(axis=-1, keepdims=True) * step)
+
+
+def _reference_critical_bandwidth(counts, k, low, high, step, window, rtol=1e-4):
+    from westerlies.density import _count_modes
+
+    rows = counts.shape[:-1]
+    lo = np.broadcast_to(np.asarray(low, dtype=float), rows).copy()
+    hi = np.broadcast_to(np.asarray(high, dtype=float), rows).copy()
+    ok_lo = _count_modes(_reference_smooth(counts, lo, step), *window) <= k
+    n_iter = int(np.ceil(np.log2(np.log(np.max(hi / lo)) / np.log1p(rtol)))) + 1
+    for _ in range(max(n_iter, 1)):
+        mid = np.sqrt(lo * hi)
+        ok = _count_modes(_reference_smooth(counts, mid, step), *window) <= k
+        hi, lo = np.where(ok, mid, hi), np.where(ok, lo, mid)
+    return np.where(ok_lo, np.broadcast_to(np.asarray(low, dtype=float), rows), hi)
+
+
+def _reference_bootstrap_counts(x, blocks, n_blocks, n_rows, rng, h, start, step, n_bins):
+    from westerlies.density import _linear_bins
+
+    mean, var = x.mean(), x.var(ddof=1)
+    scale = np.sqrt(1 + h**2 / var)
+    rows = []
+    for _ in range(n_rows):
+        drawn = np.bincount(rng.integers(0, n_blocks, n_blocks), minlength=n_blocks)
+        resampled = np.repeat(x, drawn[blocks])
+        noise = rng.standard_normal(resampled.size, dtype=np.float32)
+        y = mean + (resampled - mean + h * noise) / scale
+        rows.append(_linear_bins(y, start, step, n_bins))
+    return np.array(rows)
+
+
+def _reference_basin_modes(dens, centres, edges, min_prominence):
+    from westerlies.density import _refine
+
+    out = np.full((dens.shape[0], edges.size - 1), np.nan)
+    for r in range(dens.shape[0]):
+        best = np.full(edges.size - 1, -np.inf)
+        peaks, _ = signal.find_peaks(dens[r], prominence=min_prominence * dens[r].max())
+        for i in peaks:
+            pos, value = _refine(centres, dens[r], i)
+            m = int(np.searchsorted(edges, pos) - 1)
+            if value > best[m]:
+                best[m], out[r, m] = value, pos
+    return out
+
+
+def test_smooth_is_the_discrete_convolution_with_the_sampled_kernel():
+    # Analytic case: the density is sum_i c_i K_h((j - i) step) / N with the Gaussian K_h
+    # (scipy.stats.norm.pdf), summed directly; the FFT path (aliases beyond m = -1 and
+    # transfer terms below exp(-50) dropped) agrees to round-off, also at h = 2 step where
+    # the m = -1 alias (3e-9 at the Nyquist frequency) is needed, and at h = step.
+    from westerlies.density import _smooth
+
+    step, rng = 0.1, np.random.default_rng(20)
+    counts = np.zeros((3, 400))
+    counts[:, 150:260] = rng.poisson(3.0, (3, 110))
+    lags = np.arange(-399, 400) * step
+    for h in (step, 2 * step, 0.2345, 1.7, np.array([0.2, 0.9, 3.1]), np.array([0.1, 0.5, 2])):
+        dens = _smooth(counts, h, step)
+        for r, hr in enumerate(np.broadcast_to(h, 3)):
+            kernel = stats.norm.pdf(lags, scale=hr)
+            direct = np.convolve(counts[r], kernel)[399:-399] / counts[r].sum()
+            np.testing.assert_allclose(dens[r], direct, rtol=0, atol=1e-12 * direct.max())
+        reference = _reference_smooth(counts, h, step)
+        np.testing.assert_allclose(dens, reference, rtol=0, atol=1e-13 * reference.max())
+
+
+def test_prominent_peaks_follow_scipy_find_peaks():
+    # scipy.signal.find_peaks(prominence=...) row by row on random rows, including rows with
+    # flat tops and equal peaks (rounded values) and min_prominence 0.
+    from westerlies.density import _prominent_peaks
+
+    rng = np.random.default_rng(21)
+    for trial in range(120):
+        rows, n = rng.integers(1, 30), rng.integers(5, 150)
+        values = (
+            np.cumsum(rng.normal(size=(rows, n)), axis=1) if trial % 2 else rng.random((rows, n))
+        )
+        if trial % 3 == 0:
+            values = np.round(values * 3)
+        share = (0.0, 0.02, 0.1, 0.3)[trial % 4]
+        got_rows, got_bins = _prominent_peaks(values, share)
+        for r in range(rows):
+            expected, _ = signal.find_peaks(values[r], prominence=share * values[r].max())
+            np.testing.assert_array_equal(got_bins[got_rows == r], expected)
+
+
+def test_basin_modes_equal_the_find_peaks_loop():
+    # Random rows (with ties and flat tops) and bootstrap replicate densities of a three
+    # component mixture: the vectorized rule equals the per-replicate find_peaks loop exactly.
+    from westerlies.density import _basin_modes, _linear_bins, _smooth
+
+    rng = np.random.default_rng(22)
+    for trial in range(60):
+        n = int(rng.integers(5, 120))
+        values = rng.random((int(rng.integers(1, 25)), n))
+        if trial % 2:
+            values = np.round(values * 4)
+        centres = 30 + 0.1 * np.arange(n)
+        inner = np.sort(rng.uniform(centres[0], centres[-1], trial % 4))
+        edges = np.concatenate([[-np.inf], inner, [np.inf]])
+        np.testing.assert_array_equal(
+            _basin_modes(values, centres, edges, 0.05),
+            _reference_basin_modes(values, centres, edges, 0.05),
+        )
+    x = _mixture(rng, members=40, days=90)
+    fit = jet_modes(_latitudes(x), n_resamples=0)
+    start, n_bins = 100, 500
+    centres = (start + np.arange(n_bins)) * 0.1
+    block_counts = np.array([_linear_bins(row, start, 0.1, n_bins) for row in x])
+    weights = rng.multinomial(40, np.full(40, 1 / 40), size=300)
+    dens = _smooth(weights @ block_counts, fit.bandwidth, 0.1)
+    edges = np.concatenate([[-np.inf], fit.bounds, [np.inf]])
+    fast = _basin_modes(dens, centres, edges, 0.02)
+    np.testing.assert_array_equal(fast, _reference_basin_modes(dens, centres, edges, 0.02))
+    assert np.isfinite(fast).mean() > 0.9  # the replicates do have modes to compare
+
+
+def test_bootstrap_counts_repeat_the_replicate_by_replicate_draws(monkeypatch):
+    # Same random stream and the same binned numbers as drawing one replicate at a time;
+    # unequal blocks (one long, several one-day) also exercise growing the buffers.
+    import westerlies.density as density
+
+    rng = np.random.default_rng(23)
+    x = np.concatenate([rng.normal(46, 6, 100), rng.normal(46, 6, 4)])
+    blocks = np.concatenate([np.zeros(100, int), np.arange(1, 5)])
+    args = dict(h=2.7, start=200, step=0.1, n_bins=500)
+    for pass_days in (1, 2**16):
+        monkeypatch.setattr(density, "_PASS_DAYS", pass_days)
+        fast = density._smoothed_bootstrap_counts(
+            x, blocks, 5, 200, np.random.default_rng(7), **args
+        )
+        slow = _reference_bootstrap_counts(x, blocks, 5, 200, np.random.default_rng(7), **args)
+        np.testing.assert_array_equal(fast, slow)
+
+
+def test_bisection_that_stops_early_settles_the_same_comparisons():
+    # A row stops once no threshold lies in its bracket; compared with the thresholds it
+    # gives the same answers as the full bisection (the reference, with the alias-sum
+    # smoothing), and the full bisection itself agrees with the reference to rtol.
+    from westerlies.density import _critical_bandwidth, _linear_bins
+
+    rng = np.random.default_rng(24)
+    separation = rng.uniform(4, 9, 60)
+    samples = [np.r_[rng.normal(44, 2.5, 300), rng.normal(44 + d, 2.5, 200)] for d in separation]
+    rows = np.array([_linear_bins(v, 0, 0.1, 1000) for v in samples])
+    window = (380, 600)
+    thresholds = np.unique(np.append(hall_york_lambda(np.arange(1, 1001) * 0.001), 1.0))
+    for k in (1, 2):
+        # Reference bandwidth in the middle of the rows' critical bandwidths.
+        h_ref = float(np.median(_critical_bandwidth(rows, k, 0.2, 20.0, 0.1, window)))
+        low, high = 0.9 * h_ref * thresholds[0], 1.1 * h_ref * thresholds[-1]
+        full = _critical_bandwidth(rows, k, low, high, 0.1, window)
+        reference = _reference_critical_bandwidth(rows, k, low, high, 0.1, window)
+        np.testing.assert_allclose(full, reference, rtol=2e-4)
+        early = _critical_bandwidth(rows, k, low, high, 0.1, window, settle=(h_ref, thresholds))
+        np.testing.assert_array_equal(
+            early[:, None] / h_ref >= thresholds, full[:, None] / h_ref >= thresholds
+        )
+        inside = (full > low) & (full < high)
+        assert inside.sum() >= 5 and (early != full).sum() >= 3  # both cases are exercised
+
+
+def test_mode_test_equals_the_reference_and_is_reproducible():
+    # A weakly separated mixture gives p-values away from the extremes; the fast test gives
+    # the same critical bandwidth and p-values as the reference loop for the same seed.
+    from westerlies import density
+
+    rng = np.random.default_rng(25)
+    comp = rng.choice(2, size=(30, 40))
+    da = _latitudes(np.array([43.0, 49.0])[comp] + rng.normal(0, 3.0, (30, 40)))
+    x, blocks, n_blocks, _ = density._samples_by_block(da)
+    start, step, n_bins, window = 0, 0.1, 1000, (360, 590)
+    alphas = np.round(np.arange(1, 1001) * 0.001, 3)
+    kw = dict(start=start, step=step, n_bins=n_bins, window=window, alphas=alphas)
+
+    def reference(k, seed):
+        gen = np.random.default_rng(seed)
+        counts = density._linear_bins(x, start, step, n_bins)[None, :]
+        h_k = float(_reference_critical_bandwidth(counts, k, 2 * step, np.ptp(x), step, window)[0])
+        lam = hall_york_lambda(alphas)
+        low, high = max(2 * step, 0.9 * h_k * lam.min()), 1.1 * h_k * lam.max()
+        rows = _reference_bootstrap_counts(x, blocks, n_blocks, 99, gen, h_k, start, step, n_bins)
+        h_star = _reference_critical_bandwidth(rows, k, low, high, step, window)
+        ratios = np.where(h_star <= low, 0.0, h_star / h_k)
+        p = (1 + np.sum(ratios >= 1)) / 100
+        q = (1 + np.sum(ratios[None, :] >= lam[:, None], axis=1)) / 100
+        reject = np.flatnonzero(q <= alphas)
+        return h_k, p, float(alphas[reject[0]]) if reject.size else 1.0
+
+    results = []
+    for k in (1, 2):
+        fast = density._mode_test(
+            x, blocks, n_blocks, k=k, n_resamples=99, rng=np.random.default_rng(3), **kw
+        )
+        again = density._mode_test(
+            x, blocks, n_blocks, k=k, n_resamples=99, rng=np.random.default_rng(3), **kw
+        )
+        assert fast == again
+        expected = reference(k, 3)
+        assert fast[0] == pytest.approx(expected[0], rel=1e-12)
+        assert fast[1:] == expected[1:]
+        results.append(fast)
+    assert 0.05 < results[0][1] < 1  # a p-value that the comparison can actually test

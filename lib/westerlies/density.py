@@ -102,21 +102,24 @@ def _n_frequencies(min_bandwidth: float, n_fft: int, step: float) -> int:
 def _transfer(bandwidth: np.ndarray, n_fft: int, step: float, n_freq: int) -> np.ndarray:
     """DFT of the Gaussian kernel sampled every `step`, at the first `n_freq` rfft frequencies.
 
-    Exactly it is sum_m G(f + m / step) with G(f) = exp(-2 pi^2 h^2 f^2) (the aliases of the
-    continuous transform). For 0 <= f <= 1 / (2 step) and h >= 2 step only m = 0 and m = -1
-    matter: |f + m / step| >= 1 / step for every other m, so those terms are below
-    exp(-8 pi^2) = 5e-35. The m = -1 term reaches exp(-pi^2 h^2 / (2 step^2)) at the Nyquist
-    frequency (3e-9 at h = 2 step), so it is kept. Frequencies where G(f) < exp(-_NEGLIGIBLE)
-    are not computed (the alias is smaller than G there). Since |spectrum| <= total count, the
-    density per unit x then changes by at most 2 (exp(-50) + 2 x 5e-35) / step, about 1e-21
-    per degree on a 0.1-degree grid, far below FFT round-off (1e-16 of the maximum).
-    `bandwidth` has the leading shape; the result has shape bandwidth.shape + (n_freq,).
+    Exactly it is sum_m G(f + m / step), G(f) = exp(-2 pi^2 h^2 f^2), the aliases of the
+    continuous transform; |m| >= 3 is below exp(-2 pi^2 (2.5 h / step)^2), nothing for h >=
+    step. For 0 <= f <= 1 / (2 step) and h >= 2 step only m = 0 and m = -1 are kept: every
+    other m has |f + m / step| >= 1 / step, a term below exp(-8 pi^2) = 5e-35, while m = -1
+    reaches exp(-pi^2 h^2 / (2 step^2)) at the Nyquist frequency (3e-9 at h = 2 step). Below
+    h = 2 step the terms m = -2..2 are all summed. Frequencies where G(f) < exp(-_NEGLIGIBLE)
+    are left out by the caller (the m = -1 alias is below G there). As |spectrum| <= total
+    count, the density per unit x changes by at most (1 + 2 / n_fft) (2 exp(-50) + 1e-34) /
+    step: below 1e-20 per degree on a 0.1-degree grid, far under FFT round-off (1e-16 of the
+    maximum). `bandwidth` has the leading shape; the result has shape (..., n_freq).
     """
     h = np.asarray(bandwidth, dtype=float)[..., None]
     freq = np.arange(n_freq) * (1.0 / (n_fft * step))  # as scipy.fft.rfftfreq
-    return np.exp(-2 * np.pi**2 * (h * (freq - 1 / step)) ** 2) + np.exp(
-        -2 * np.pi**2 * (h * freq) ** 2
-    )
+    aliases = (-1, 0) if np.min(h) >= 2 * step else (-2, -1, 0, 1, 2)
+    total = 0.0
+    for m in aliases:  # summed in this order, as a sum over m = -2..2 would be
+        total = total + np.exp(-2 * np.pi**2 * (h * (freq + m / step)) ** 2)
+    return total
 
 
 #: Values per FFT pass (rows x FFT length): small arrays reused across passes are much
@@ -268,35 +271,27 @@ def _prominences(dens: np.ndarray, rows: np.ndarray, idx: np.ndarray) -> np.ndar
     """
     n_rows, n = dens.shape
     per_row = np.bincount(rows, minlength=n_rows)
-    first = np.cumsum(per_row) - per_row  # index of each row's first maximum
-    col = np.arange(rows.size) - first[rows]
-    width = int(per_row.max())
-    # Minimum of the stretches [0, c_0), [c_0, c_1), ..., [c_last, n) of every row.
+    col = np.arange(rows.size) - (np.cumsum(per_row) - per_row)[rows]  # place in its row
+    # Minimum of the stretches [0, c_0), [c_0, c_1), ..., [c_last, n) of every row: each
+    # maximum has the stretch before it and the one after it.
     starts = np.sort(np.concatenate([np.arange(n_rows) * n, rows * n + idx]))
     stretch = np.minimum.reduceat(dens.ravel(), starts)
-    bases = np.full((n_rows, width + 1), np.inf)
-    bases[:, 0] = stretch[first + np.arange(n_rows)]
-    bases[rows, col + 1] = stretch[first[rows] + rows + col + 1]
-    heights = np.full((n_rows, width), -np.inf)
-    heights[rows, col] = dens[rows, idx]
-    out = np.empty(rows.size)
-    t = np.arange(width)
-    s = np.arange(width + 1)
-    chunk = max(1, 2**20 // (width + 1) ** 2)  # rows per pass, bounds the (r, t, s) arrays
-    for lo in range(0, n_rows, chunk):
-        h, b = heights[lo : lo + chunk], bases[lo : lo + chunk]
-        higher = h[:, None, :] > h[:, :, None]  # [r, t, u]: maximum u is above maximum t
-        left = np.where(higher & (t < t[:, None]), t, -1).max(axis=2)
-        right = np.where(higher & (t > t[:, None]), t, width).min(axis=2)
-        right = np.minimum(right, per_row[lo : lo + chunk, None])
-        inside = (s > left[..., None]) & (s <= t[:, None])  # stretches left_higher+1 .. t
-        left_min = np.where(inside, b[:, None, :], np.inf).min(axis=2)
-        inside = (s > t[:, None]) & (s <= right[..., None])  # stretches t+1 .. right_higher
-        right_min = np.where(inside, b[:, None, :], np.inf).min(axis=2)
-        prominence = h - np.maximum(left_min, right_min)
-        sel = (rows >= lo) & (rows < lo + chunk)
-        out[sel] = prominence[rows[sel] - lo, col[sel]]
-    return out
+    before = stretch[np.arange(rows.size) + rows]
+    after = stretch[np.arange(rows.size) + rows + 1]
+    height = dens[rows, idx]
+    bases = []
+    for side, stretches, reach in ((-1, before, col), (1, after, per_row[rows] - 1 - col)):
+        base = stretches.copy()
+        scan, d = np.flatnonzero(reach > 0), 1  # maxima still walking to that side
+        while scan.size:
+            j = scan + side * d
+            lower = height[j] <= height[scan]  # not yet higher ground
+            scan, j = scan[lower], j[lower]
+            base[scan] = np.minimum(base[scan], stretches[j])
+            d += 1
+            scan = scan[reach[scan] >= d]
+        bases.append(base)
+    return height - np.maximum(bases[0], bases[1])
 
 
 def _prominent_peaks(dens: np.ndarray, min_prominence: float) -> tuple[np.ndarray, np.ndarray]:
@@ -353,19 +348,26 @@ def _basin_modes(
 ) -> np.ndarray:
     """Per row: the latitude of the highest qualifying peak in each basin between `edges`.
 
-    Ties go to the southmost peak.
+    Ties go to the southmost peak. Vectorized over rows (see `_prominent_peaks`).
     """
     n_basins = edges.size - 1
     out = np.full((dens.shape[0], n_basins), np.nan)
     rows, idx = _prominent_peaks(dens, min_prominence)
     pos, value = _refine_peaks(centres, dens, rows, idx)
     basin = np.searchsorted(edges, pos) - 1
-    # Highest value first within each (row, basin); lexsort is stable, so ties keep bin order.
-    order = np.lexsort((-value, basin, rows))
-    rows, basin, pos = rows[order], basin[order], pos[order]
-    first = np.ones(rows.size, dtype=bool)
-    first[1:] = (rows[1:] != rows[:-1]) | (basin[1:] != basin[:-1])
-    out[rows[first], basin[first]] = pos[first]
+    # Peaks come in row, then bin order, and |shift| < 1/2 bin keeps positions in that order,
+    # so each (row, basin) group is one run; guard the order anyway.
+    group = rows * n_basins + basin
+    if np.any(group[1:] < group[:-1]):
+        order = np.argsort(group, kind="stable")
+        group, pos, value = group[order], pos[order], value[order]
+    if group.size:
+        starts = np.flatnonzero(np.r_[True, group[1:] != group[:-1]])
+        best = np.maximum.reduceat(value, starts)
+        run = np.cumsum(np.r_[False, group[1:] != group[:-1]])  # run number of each peak
+        top = np.flatnonzero(value == best[run])
+        first = top[np.r_[True, run[top[1:]] != run[top[:-1]]]]  # the first highest in a run
+        out.flat[group[first]] = pos[first]
     return out
 
 
@@ -714,6 +716,11 @@ def _mode_test(
        Calibrated p-value (Hall and York 2001): the test at level alpha rejects when
        (1 + #{h*_k >= lambda(alpha) h_k}) / (B + 1) <= alpha; the p-value reported is the
        smallest alpha on a grid of 0.001 at which it rejects (1 if none).
+
+    Computation: replicates are drawn from `rng` one after another (blocks, then noise) and
+    binned in batches (`_smoothed_bootstrap_counts`); each batch's bisections share one FFT of
+    the counts and a replicate stops bisecting once its comparisons with 1 and the lambda
+    grid are settled (`_critical_bandwidth`, `settle`), which does not change the p-values.
     """
     counts = _linear_bins(x, start, step, n_bins)[None, :]
     h_hi = max(np.ptp(x), 4 * step)
