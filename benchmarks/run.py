@@ -15,7 +15,8 @@
        sums every variable.
    (b) ``suite``: ``westerlies run CONFIG --out DIR --overwrite --quiet`` with a generated TOML
        configuration (DJF, 1000 resamples, seed 0; ``chunks = { member = 50, time = 150 }``
-       so the data stay dask-backed in chunks of 50 member files): once with dask's default
+       so the data stay dask-backed in chunks of 50 member files, the one-file reference as
+       one chunk, ``chunks = {}``): once with dask's default
        threaded scheduler, then once per ``--workers N`` (a local dask.distributed cluster of N
        single-threaded worker processes).
    (c) ``plain`` (small workload only; `benchmarks/plain_way.py`): every number of the
@@ -201,7 +202,7 @@ baseline = "{LABELS["control"]}"
 
 [datasets."{LABELS["reference"]}"]
 path = "{files["reference"][0]}"
-chunks = {{ time = 151 }}
+chunks = {{}}
 
 [datasets."{LABELS["control"]}"]
 path = "{workdir / "control" / "member_*.nc"}"
