@@ -207,7 +207,7 @@ def _read(source, *, chunks, member_dim):
     paths = _paths(source)
     if len(paths) == 1:
         return _open_one(paths[0], chunks), f"file {str(paths[0])!r}", None
-    parts, lazies = [], []
+    lazies = []
     for path in paths:
         lazy = _open_lazy(path)
         found = _find_member_dim(lazy, member_dim)
@@ -221,7 +221,12 @@ def _read(source, *, chunks, member_dim):
                 )
             lazy = lazy.isel({found: 0}, drop=True)
         lazies.append(lazy)
-        parts.append(_chunked(lazy, chunks))
+    grouped = isinstance(chunks, Mapping) and "member" in chunks
+    # Grouped: the numeric fields are read by groups of files (`_grouped`); the rest (times,
+    # grid, bounds) is concatenated here, which checks that every file has the same grid and
+    # times. Otherwise every variable is concatenated from the files, chunked as asked.
+    fields = _numeric_fields(lazies, paths) if grouped else []
+    parts = [lazy.drop_vars(fields) if grouped else _chunked(lazy, chunks) for lazy in lazies]
     try:
         merged = xr.concat(
             parts, dim="member", data_vars="all", coords="minimal", compat="override", join="exact"
@@ -234,18 +239,39 @@ def _read(source, *, chunks, member_dim):
             "regrid or align the members before opening them together",
         ) from err
     merged = merged.assign_coords(member=np.arange(len(paths)))
-    if isinstance(chunks, Mapping) and "member" in chunks:
-        # one file per member gives one chunk per member; group them as asked, so reductions
-        # over the ensemble work on a few large chunks instead of thousands of small ones
-        merged = _grouped(merged, lazies, int(chunks["member"])).chunk(
+    if grouped:
+        # one task per group of chunks["member"] files, not one per file: reductions over the
+        # ensemble then work on a few large chunks instead of thousands of small ones
+        merged = _grouped(merged, lazies, fields, int(chunks["member"])).chunk(
             {k: v for k, v in chunks.items() if k in merged.dims}
         )
     return merged, f"{len(paths)} files like {str(paths[0])!r}", paths
 
 
-def _grouped(merged: xr.Dataset, lazies: list[xr.Dataset], size: int) -> xr.Dataset:
-    """`merged` with every numeric per-member variable read by one task per group of `size`
-    member files (`lazies`: the files opened without dask).
+def _numeric_fields(lazies: list[xr.Dataset], paths: list[Path]) -> list[str]:
+    """Names of the numeric data variables, checked to have the same dims and shape in every
+    member file."""
+    first = lazies[0]
+    names = [str(n) for n, v in first.data_vars.items() if v.dtype.kind in "fiu"]
+    for lazy, path in zip(lazies[1:], paths[1:], strict=True):
+        for name in names:
+            var, ref = lazy.variables.get(name), first[name]
+            if var is None or var.dims != ref.dims or var.shape != ref.shape:
+                found = "missing" if var is None else f"dims {var.dims} shape {var.shape}"
+                raise CoordinateError.make(
+                    f"file {str(path)!r}: variable {name!r}",
+                    found,
+                    f"dims {ref.dims} shape {ref.shape}, as in {str(paths[0])!r}",
+                    "give member files with the same variables on the same grid and times",
+                )
+    return names
+
+
+def _grouped(
+    merged: xr.Dataset, lazies: list[xr.Dataset], fields: list[str], size: int
+) -> xr.Dataset:
+    """`merged` with the numeric `fields` of the member files (`lazies`: opened without dask)
+    added, each read by one task per group of `size` member files.
 
     Concatenating lazily opened files makes one task per file and variable, then merges them
     into groups: thousands of tiny tasks for a large ensemble, whose overhead dominates on a
@@ -256,12 +282,21 @@ def _grouped(merged: xr.Dataset, lazies: list[xr.Dataset], size: int) -> xr.Data
     import dask.array as da
 
     out = merged.copy()
-    for name, var in merged.data_vars.items():
-        if var.dims[:1] != ("member",) or var.dtype.kind not in "fiu":
-            continue  # numeric fields only (times and bounds stay as opened)
-        stacked = _MemberStack([lazy[name].variable for lazy in lazies], var.dtype)
-        data = da.from_array(stacked, chunks=(size, *var.shape[1:]), asarray=False)
-        out[name] = var.copy(data=data)
+    for name in fields:
+        ref = lazies[0][name]
+        # one reader per group: a task then carries only its own files' handles
+        data = da.concatenate(
+            [
+                da.from_array(
+                    _MemberStack([lazy[name].variable for lazy in lazies[i : i + size]], ref.dtype),
+                    chunks=(size, *ref.shape),
+                    asarray=False,
+                )
+                for i in range(0, len(lazies), size)
+            ],
+            axis=0,
+        )
+        out[name] = xr.Variable(("member", *ref.dims), data, ref.attrs, ref.encoding)
     return out
 
 
