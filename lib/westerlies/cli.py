@@ -146,28 +146,16 @@ def _dask_progress(enabled: bool):
     return ProgressBar(minimum=2.0)
 
 
-def _file_cache() -> None:
-    """Let xarray keep up to half the allowed open files (4096 at most) open between passes,
-    so member files are not reopened every time an ensemble of more than 128 files is read
-    again (xarray's default keeps 128)."""
-    import resource
-
-    import xarray as xr
-
-    soft, _ = resource.getrlimit(resource.RLIMIT_NOFILE)
-    limit = 4096 if soft == resource.RLIM_INFINITY else min(4096, soft // 2)
-    xr.set_options(file_cache_maxsize=max(128, limit))
-
-
 def _worker_settings() -> None:
-    """Our own cluster's workers: the file cache above, and the diagnostics' expected
-    InputWarnings stay quiet there as they do in the threaded run."""
+    """Our own cluster's workers: the diagnostics' expected InputWarnings stay quiet there as
+    they do in the threaded run. (xarray's file cache stays at its default: keeping thousands
+    of member files open costs each file's HDF5 chunk cache, measured 3.6 GB against 2 GB for
+    2000 files.)"""
     import warnings
 
     from .errors import InputWarning
 
     warnings.simplefilter("ignore", InputWarning)
-    _file_cache()
 
 
 def _cluster(workers: int | None, scheduler: str | None, say):
@@ -203,7 +191,6 @@ def _compare_and_write(
     from .comparison import compare
 
     _refuse_existing(out, overwrite)  # before any work: a refused run touches nothing
-    _file_cache()
     options = dict(config["options"])
     resampling = options.pop("resampling")
     say = _progress(quiet)
