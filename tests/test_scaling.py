@@ -80,3 +80,17 @@ def test_cluster_options_are_checked(tmp_path):
     assert both.returncode == 2 and "not allowed with" in both.stderr
     zero = subprocess.run([*run, "--workers", "0"], capture_output=True, text=True)
     assert zero.returncode != 0 and not (tmp_path / "o").exists()
+
+
+def test_member_groups_and_chunked_large_field_path_give_the_same_numbers(
+    files, in_memory, monkeypatch
+):
+    from westerlies import diagnostics
+
+    # every field counts as large: fits and per-dataset work stay on chunked data, run in
+    # threads side by side (the path of ensembles too large to gather in one task)
+    monkeypatch.setattr(diagnostics, "WHOLE_TASK_BYTES", 0)
+    with dask.config.set(scheduler="threads"):
+        lazy = _compare(files, chunks={"member": 2, "time": 50})  # member files read in groups
+    _assert_same(in_memory, lazy)
+    assert lazy.indices["ctl"]["nao"].sizes["member"] == 5
