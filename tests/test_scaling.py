@@ -87,8 +87,8 @@ def test_member_groups_and_chunked_large_field_path_give_the_same_numbers(
 ):
     from westerlies import diagnostics
 
-    # every field counts as large: fits and per-dataset work stay on chunked data, run in
-    # threads side by side (the path of ensembles too large to gather in one task)
+    # every field counts as large: fits and per-dataset work stay on chunked data (the path
+    # of ensembles too large to gather in one task)
     monkeypatch.setattr(diagnostics, "WHOLE_TASK_BYTES", 0)
     with dask.config.set(scheduler="threads"):
         lazy = _compare(files, chunks={"member": 2, "time": 50})  # member files read in groups

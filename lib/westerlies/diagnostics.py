@@ -7,7 +7,6 @@ dataset and returns labelled results that the summary table and the figures read
 from __future__ import annotations
 
 import warnings
-from concurrent.futures import ThreadPoolExecutor
 from typing import Any
 
 import numpy as np
@@ -102,7 +101,7 @@ def run_each(calls: dict[str, tuple]) -> dict[str, Any]:
     computation: the active scheduler runs them in parallel (dask's threads, or the workers of
     a dask.distributed cluster, each call on one worker with its data gathered there), and the
     functions see in-memory data, so the numbers do not depend on the scheduler. Calls with a
-    larger dask-backed argument run here, in threads side by side, on the chunked data.
+    larger dask-backed argument run here in turn, on the chunked data (peak memory bounded).
     """
     import dask
 
@@ -120,11 +119,10 @@ def run_each(calls: dict[str, tuple]) -> dict[str, Any]:
         # one filter for every task (threads share it; catch_warnings inside tasks would race)
         warnings.simplefilter("ignore", InputWarning)
         results = dict(zip(lazy, dask.compute(*lazy.values()), strict=True))
-        # the large ones side by side too: one's in-memory steps (k-means, densities) overlap
-        # the others' chunked passes on the scheduler
-        with ThreadPoolExecutor(max_workers=max(1, len(direct))) as pool:
-            running = {key: pool.submit(func, *args) for key, (func, args) in direct.items()}
-            results.update({key: future.result() for key, future in running.items()})
+        # the large ones in turn: side by side, their chunked passes raised the peak memory
+        # of 2 x 1000 members from 2.2 to 3.3 GB
+        for key, (func, args) in direct.items():
+            results[key] = func(*args)
     return {k: results[k] for k in calls}
 
 
