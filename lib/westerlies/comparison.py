@@ -190,10 +190,10 @@ def _prepare_all(
 ) -> dict[str, Prepared]:
     """Anomalies, season selection, map sums and the jet index of every dataset.
 
-    Two passes over the files, each for every dataset at once (so the scheduler can work on
-    all datasets and chunks in parallel): the climatologies and the jet's sector wind profiles
-    (small), then one graph for the Z500 anomalies kept in memory and the per-block map sums,
-    so each Z500 chunk is read once for both.
+    Two passes over the files: the climatologies and the jet's sector wind profiles (small)
+    for every dataset at once, so the scheduler can work on all datasets and chunks in
+    parallel; then, one dataset at a time (peak memory), one graph for the Z500 anomalies kept
+    in memory and the per-block map sums, so each Z500 chunk is read once for both.
     """
     from .filters import select_filtered_season
     from .jet import jet_from_profile, sector_profile
