@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import hashlib
 from collections.abc import Callable, Sequence
 from pathlib import Path
 
@@ -10,6 +11,22 @@ import pytest
 import xarray as xr
 
 G0 = 9.80665  # standard gravity, m s-2: CGPM (1901), as adopted by WMO
+
+
+def _tree_digest(path: Path) -> str:
+    """SHA-256 of every name and file content under `path` (did anything change?)."""
+    digest = hashlib.sha256()
+    for item in sorted(path.rglob("*")):
+        digest.update(str(item.relative_to(path)).encode())
+        if item.is_file():
+            digest.update(item.read_bytes())
+    return digest.hexdigest()
+
+
+@pytest.fixture(scope="session")
+def tree_digest() -> Callable[[Path], str]:
+    """The digest function above: tests check that refused runs leave outputs untouched."""
+    return _tree_digest
 
 
 @pytest.fixture(scope="session")

@@ -6,7 +6,6 @@ to check that planted changes are found and that two samples of one generator mo
 
 from __future__ import annotations
 
-import hashlib
 import json
 import warnings
 
@@ -111,15 +110,6 @@ def test_common_basis_and_indices(planted):
     assert tested("response") == {"exp"}
 
 
-def _tree_digest(path) -> str:
-    digest = hashlib.sha256()
-    for item in sorted(path.rglob("*")):
-        digest.update(str(item.relative_to(path)).encode())
-        if item.is_file():
-            digest.update(item.read_bytes())
-    return digest.hexdigest()
-
-
 def test_write_every_output(planted, tmp_path):
     out = planted.write(tmp_path / "set")
     names = {p.name for p in out.iterdir()}
@@ -151,14 +141,14 @@ def test_write_every_output(planted, tmp_path):
     assert "research diagnostics with sampling uncertainty" in html
 
 
-def test_existing_output_refused_untouched(planted, tmp_path):
+def test_existing_output_refused_untouched(planted, tmp_path, tree_digest):
     out = tmp_path / "set"
     out.mkdir()
     (out / "keep.txt").write_text("mine")
-    before = _tree_digest(out)
+    before = tree_digest(out)
     with pytest.raises(ConfigError, match="overwrite"):
         planted.write(out)
-    assert _tree_digest(out) == before
+    assert tree_digest(out) == before
     planted.write(out, overwrite=True)
     assert not (out / "keep.txt").exists() and (out / "report.html").exists()
     assert [p.name for p in tmp_path.iterdir()] == ["set"]  # no temporary leftovers

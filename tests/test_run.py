@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import hashlib
 import shutil
 import subprocess
 import sys
@@ -27,15 +26,6 @@ def _cli(*args, cwd=None) -> subprocess.CompletedProcess:
     )
 
 
-def _digest(path: Path) -> str:
-    digest = hashlib.sha256()
-    for item in sorted(path.rglob("*")):
-        digest.update(str(item.relative_to(path)).encode())
-        if item.is_file():
-            digest.update(item.read_bytes())
-    return digest.hexdigest()
-
-
 @pytest.fixture(scope="module")
 def example_dir(tmp_path_factory) -> Path:
     """The example configuration beside a small copy of the demo data it points to."""
@@ -50,7 +40,7 @@ def example_dir(tmp_path_factory) -> Path:
     return root
 
 
-def test_example_configuration_runs(example_dir):
+def test_example_configuration_runs(example_dir, tree_digest):
     out = example_dir / "out"
     done = _cli("run", example_dir / "run.toml", "--out", out, "--quiet")
     assert done.returncode == 0, done.stderr
@@ -58,10 +48,10 @@ def test_example_configuration_runs(example_dir):
     assert (out / "report.html").exists() and (out / "indices.nc").exists()
     assert len(list((out / "figures").glob("*.png"))) >= 12
     # a second run into the same directory is refused and touches nothing
-    before = _digest(out)
+    before = tree_digest(out)
     again = _cli("run", example_dir / "run.toml", "--out", out, "--quiet")
     assert again.returncode == 2 and "--overwrite" in again.stderr
-    assert _digest(out) == before
+    assert tree_digest(out) == before
 
 
 def test_example_configuration_is_complete():

@@ -194,23 +194,7 @@ def jet_index(
     in memory, filtered and searched. Where some values are missing (e.g. below ground) the
     means use the values present.
     """
-    if not isinstance(u, xr.DataArray):
-        raise InputError.make(
-            "jet_index: u",
-            type(u).__name__,
-            "an xarray DataArray of zonal wind",
-            "pass ds['u'] from westerlies.open_dataset",
-        )
-    missing_dims = {"member", "time", "lat", "lon"} - set(u.dims)
-    if missing_dims:
-        raise CoordinateError.make(
-            "jet_index: variable 'u'",
-            f"dims {tuple(u.dims)}",
-            "dims member, time, plev, lat, lon (canonical form)",
-            "open the data with westerlies.open_dataset",
-        )
-    _check_time(u, "jet_index")
-    profile, used = _sector_profile(u, levels, sector, lat_range)
+    profile, used = sector_profile(u, levels=levels, sector=sector, lat_range=lat_range)
     return jet_from_profile(
         profile.compute(),
         used=used,
@@ -232,6 +216,21 @@ def sector_profile(
     """The first half of `jet_index`: the (member, time, lat) wind profile of the sector (m
     s-1), lazy for dask input, and the levels used (hPa). Computing several datasets' profiles
     together, then `jet_from_profile`, gives `jet_index` with one pass over the files."""
+    if not isinstance(u, xr.DataArray):
+        raise InputError.make(
+            "jet_index: u",
+            type(u).__name__,
+            "an xarray DataArray of zonal wind",
+            "pass ds['u'] from westerlies.open_dataset",
+        )
+    missing_dims = {"member", "time", "lat", "lon"} - set(u.dims)
+    if missing_dims:
+        raise CoordinateError.make(
+            "jet_index: variable 'u'",
+            f"dims {tuple(u.dims)}",
+            "dims member, time, plev, lat, lon (canonical form)",
+            "open the data with westerlies.open_dataset",
+        )
     _check_time(u, "jet_index")
     return _sector_profile(u, levels, sector, lat_range)
 
