@@ -12,6 +12,7 @@ from typing import Any
 
 import numpy as np
 import xarray as xr
+from dask import is_dask_collection
 from threadpoolctl import threadpool_limits
 
 from . import resampling
@@ -94,10 +95,6 @@ def run_diagnostics(prepared, labels, fit_on, baseline, ref_label, opts, steps) 
 WHOLE_TASK_BYTES = 256e6
 
 
-def _is_dask(obj: Any) -> bool:
-    return hasattr(getattr(obj, "data", None), "dask")
-
-
 def run_each(calls: dict[Any, tuple]) -> dict[Any, Any]:
     """``func(*args)`` for every ``key: (func, *args)``, independent calls run side by side.
 
@@ -111,7 +108,7 @@ def run_each(calls: dict[Any, tuple]) -> dict[Any, Any]:
 
     lazy, direct = {}, {}
     for key, (func, *args) in calls.items():
-        large = any(_is_dask(a) and a.nbytes > WHOLE_TASK_BYTES for a in args)
+        large = any(is_dask_collection(a) and a.nbytes > WHOLE_TASK_BYTES for a in args)
         if large:
             direct[key] = (func, args)
         else:
