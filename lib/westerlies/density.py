@@ -662,8 +662,9 @@ def _smoothed_bootstrap_counts(
     Per replicate, in this order from `rng`: the drawn blocks (n_blocks integers), then for
     its m days h = ceil(m / 2) float32 uniforms u1 and h uniforms u2, made standard normal by
     `_box_muller`; the days' deviates are the h cosine ones, then the first m - h sine ones.
-    Every bandwidth uses the same drawn blocks and deviates. Positions in bins are (x - mean) a + eps b + c with a = 1 / (scale step),
-    b = h / (scale step), c = mean / step - start: the same as
+    Every bandwidth uses the same drawn blocks and deviates. Positions in bins are
+    (x - mean) a + eps b + c with a = 1 / (scale step), b = h / (scale step),
+    c = mean / step - start: the same as
     `_linear_bins(mean + (x - mean + h eps) / scale, ...)` up to rounding, in fewer passes
     over buffers that are reused across replicates (fresh large arrays cost more than the
     arithmetic).
