@@ -13,6 +13,7 @@ import warnings
 import dask
 import numpy as np
 import pytest
+import xarray as xr
 
 import westerlies as wl
 from westerlies.synthetic import write_scenario
@@ -58,8 +59,11 @@ def test_dask_threaded_gives_the_same_numbers(files, in_memory):
     _assert_same(in_memory, lazy)
 
 
-def test_process_cluster_gives_the_same_numbers(files, in_memory):
+def test_process_cluster_gives_the_same_numbers(files, in_memory, monkeypatch):
     distributed = pytest.importorskip("distributed")
+    from westerlies import data
+
+    monkeypatch.setattr(data, "_OPEN_GROUP", 2)  # the workers open the member files
     with (
         distributed.LocalCluster(
             n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None
@@ -67,7 +71,38 @@ def test_process_cluster_gives_the_same_numbers(files, in_memory):
         distributed.Client(cluster),
     ):
         on_cluster = _compare(files, chunks={"time": 50})
+        grouped = _compare(files, chunks={"member": 2, "time": 50})
     _assert_same(in_memory, on_cluster)
+    _assert_same(in_memory, grouped)
+
+
+def _cached_paths() -> list[str]:
+    """The files xarray holds open in this process."""
+    from xarray.backends.file_manager import FILE_CACHE
+
+    return [str(key) for key in FILE_CACHE]
+
+
+def test_member_files_are_opened_by_the_workers(tmp_path, monkeypatch):
+    distributed = pytest.importorskip("distributed")
+    from westerlies import data
+
+    paths = write_scenario(tmp_path, members=5, winters=1)["control"]  # new: nobody opened them
+    monkeypatch.setattr(data, "_OPEN_GROUP", 2)
+    with (
+        distributed.LocalCluster(
+            n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None
+        ) as cluster,
+        distributed.Client(cluster) as client,
+    ):
+        remote = data._open_members(paths, None)
+        on_workers = " ".join(" ".join(keys) for keys in client.run(_cached_paths).values())
+    here = " ".join(_cached_paths())
+    assert all(str(p) in on_workers and str(p) not in here for p in paths)
+    local = data._open_group(paths, None)
+    assert len(remote) == len(local) == 5
+    for a, b in zip(remote, local, strict=True):
+        xr.testing.assert_identical(a.load(), b.load())
 
 
 def test_cluster_options_are_checked(tmp_path):
