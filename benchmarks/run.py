@@ -307,7 +307,7 @@ def run_benchmark(args: argparse.Namespace, reuse: bool) -> dict:
         steps[key]["timings_s"] = suite_timings(out)
         if steps[key]["status"] != "ok":
             break
-    if workload.name == "small" and steps["suite"]["status"] == "ok":
+    if workload.name == "small" and steps["suite"]["status"] == "ok" and not args.skip_plain:
         args.suite_out = runs / "out"
         steps["plain"] = internal("plain", runs)
     report["ratios"] = ratios(steps)
@@ -406,6 +406,9 @@ def _parser() -> argparse.ArgumentParser:
         help="also run the suite with --workers N (e.g. --workers 1 2 for the speed-up)",
     )
     parser.add_argument("--keep", action="store_true", help="keep the workdir at the end")
+    parser.add_argument(
+        "--skip-plain", action="store_true", help="small: leave out the plain way (c)"
+    )
     parser.add_argument("--json", type=Path, default=None, help="write the report as JSON here")
     parser.add_argument("--timeout", type=float, default=None, help="seconds per step, then stop")
     parser.add_argument(

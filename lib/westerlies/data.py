@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import glob
 import os
+import pickle
 import threading
 import warnings
 from collections.abc import Mapping, Sequence
@@ -252,13 +253,19 @@ def _open_members(paths: list[Path], member_dim: str | None) -> list[xr.Dataset]
     if client is None or len(paths) <= _OPEN_GROUP:
         return _open_group(paths, member_dim)
     groups = [paths[i : i + _OPEN_GROUP] for i in range(0, len(paths), _OPEN_GROUP)]
-    futures = client.map(_open_group, groups, member_dim=member_dim, pure=False)
-    return [lazy for group in client.gather(futures) for lazy in group]
+    futures = client.map(_open_group_pickled, groups, member_dim=member_dim, pure=False)
+    return [lazy for group in client.gather(futures) for lazy in pickle.loads(group)]
 
 
 def _open_group(paths: list[Path], member_dim: str | None) -> list[xr.Dataset]:
     with _OPEN_LOCK:
         return [_open_member(path, member_dim) for path in paths]
+
+
+def _open_group_pickled(paths: list[Path], member_dim: str | None) -> bytes:
+    """`_open_group` as bytes: a worker measures the size of a task's result, and dask's
+    sizeof of an xarray object reads its values, i.e. the whole files."""
+    return pickle.dumps(_open_group(paths, member_dim), protocol=pickle.HIGHEST_PROTOCOL)
 
 
 def _open_member(path: Path, member_dim: str | None) -> xr.Dataset:
