@@ -245,7 +245,7 @@ _OPEN_LOCK = threading.Lock()
 
 
 def _open_members(paths: list[Path], member_dim: str | None) -> list[xr.Dataset]:
-    """Every member file opened lazily (`_open_member`). With a dask.distributed client, by
+    """Every member file opened lazily (`_one_member`). With a dask.distributed client, by
     the workers, `_OPEN_GROUP` files per task: opening thousands of files (metadata, decoded
     times, indexes: about 10 ms each) is otherwise serial work in the client, and the opened
     datasets travel back as light references to their files."""
@@ -259,18 +259,30 @@ def _open_members(paths: list[Path], member_dim: str | None) -> list[xr.Dataset]
 
 def _open_group(paths: list[Path], member_dim: str | None) -> list[xr.Dataset]:
     with _OPEN_LOCK:
-        return [_open_member(path, member_dim) for path in paths]
+        return [_one_member(_open_lazy(path), path, member_dim) for path in paths]
 
 
 def _open_group_pickled(paths: list[Path], member_dim: str | None) -> bytes:
-    """`_open_group` as bytes: a worker measures the size of a task's result, and dask's
-    sizeof of an xarray object reads its values, i.e. the whole files."""
-    return pickle.dumps(_open_group(paths, member_dim), protocol=pickle.HIGHEST_PROTOCOL)
+    """`_open_group` on a worker, as bytes, the files closed again before returning.
+
+    Bytes: a worker measures the size of a task's result, and dask's sizeof of an xarray
+    object reads its values, i.e. the whole files. Closed here: otherwise the garbage
+    collector closes them later in whatever thread it runs, which can meet a read of another
+    file in the task thread inside HDF5 (not thread-safe: workers crashed with a double free).
+    The copies in the client reopen their file when read.
+    """
+    with _OPEN_LOCK:
+        opened = [_open_lazy(path) for path in paths]
+        try:
+            members = [_one_member(ds, p, member_dim) for ds, p in zip(opened, paths, strict=True)]
+            return pickle.dumps(members, protocol=pickle.HIGHEST_PROTOCOL)
+        finally:
+            for ds in opened:
+                ds.close()
 
 
-def _open_member(path: Path, member_dim: str | None) -> xr.Dataset:
+def _one_member(lazy: xr.Dataset, path: Path, member_dim: str | None) -> xr.Dataset:
     """One member file opened lazily, its size-1 member dimension (if any) dropped."""
-    lazy = _open_lazy(path)
     found = _find_member_dim(lazy, member_dim)
     if found is not None:
         if lazy.sizes[found] != 1:
