@@ -6,7 +6,6 @@ same inputs and seed give the same results however they are computed.
 
 from __future__ import annotations
 
-import pickle
 import subprocess
 import sys
 import warnings
@@ -14,7 +13,6 @@ import warnings
 import dask
 import numpy as np
 import pytest
-import xarray as xr
 
 import westerlies as wl
 from westerlies.synthetic import write_scenario
@@ -60,11 +58,8 @@ def test_dask_threaded_gives_the_same_numbers(files, in_memory):
     _assert_same(in_memory, lazy)
 
 
-def test_process_cluster_gives_the_same_numbers(files, in_memory, monkeypatch):
+def test_process_cluster_gives_the_same_numbers(files, in_memory):
     distributed = pytest.importorskip("distributed")
-    from westerlies import data
-
-    monkeypatch.setattr(data, "_OPEN_GROUP", 2)  # the workers open the member files
     with (
         distributed.LocalCluster(
             n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None
@@ -75,33 +70,6 @@ def test_process_cluster_gives_the_same_numbers(files, in_memory, monkeypatch):
         grouped = _compare(files, chunks={"member": 2, "time": 50})
     _assert_same(in_memory, on_cluster)
     _assert_same(in_memory, grouped)
-
-
-def test_member_files_are_opened_by_the_workers(tmp_path, monkeypatch):
-    distributed = pytest.importorskip("distributed")
-    from westerlies import data
-
-    def not_here(path):
-        raise AssertionError(f"{path} opened in the client")
-
-    paths = write_scenario(tmp_path, members=5, winters=1)["control"]
-    with (
-        distributed.LocalCluster(
-            n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None
-        ) as cluster,
-        distributed.Client(cluster),
-        monkeypatch.context() as patch,
-    ):
-        patch.setattr(data, "_OPEN_GROUP", 2)
-        patch.setattr(data, "_open_lazy", not_here)  # the workers import their own
-        remote = data._open_members(paths, None)
-    local = data._open_group(paths, None)
-    assert len(remote) == len(local) == 5
-    for a, b in zip(remote, local, strict=True):
-        # still references to the file: nothing read on the way (dask's sizeof of a task's
-        # result reads an xarray object's values)
-        assert len(pickle.dumps(a)) < 2 * len(pickle.dumps(b)) < 100_000
-        xr.testing.assert_identical(a.load(), b.load())
 
 
 def test_cluster_options_are_checked(tmp_path):

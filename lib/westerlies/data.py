@@ -14,8 +14,6 @@ from __future__ import annotations
 
 import glob
 import os
-import pickle
-import threading
 import warnings
 from collections.abc import Mapping, Sequence
 from pathlib import Path
@@ -25,7 +23,6 @@ import numpy as np
 import xarray as xr
 
 from . import timeaxis, units
-from ._cluster import active_client
 from .errors import CoordinateError, GridError, InputError, InputWarning, TimeStepError, UnitsError
 
 __all__ = ["CANONICAL_VARIABLES", "canonicalize", "open_dataset"]
@@ -210,7 +207,20 @@ def _read(source, *, chunks, member_dim):
     paths = _paths(source)
     if len(paths) == 1:
         return _open_one(paths[0], chunks), f"file {str(paths[0])!r}", None
-    lazies = _open_members(paths, member_dim)
+    lazies = []
+    for path in paths:
+        lazy = _open_lazy(path)
+        found = _find_member_dim(lazy, member_dim)
+        if found is not None:
+            if lazy.sizes[found] != 1:
+                raise CoordinateError.make(
+                    f"file {str(path)!r}",
+                    f"{lazy.sizes[found]} members along {found!r}",
+                    "one member per file when several files are given",
+                    "pass one file holding all members, or one file per member",
+                )
+            lazy = lazy.isel({found: 0}, drop=True)
+        lazies.append(lazy)
     grouped = isinstance(chunks, Mapping) and "member" in chunks
     # Grouped: the numeric fields are read by groups of files (`_grouped`); the rest (times,
     # grid, bounds) is concatenated here, which checks that every file has the same grid and
@@ -236,64 +246,6 @@ def _read(source, *, chunks, member_dim):
             {k: v for k, v in chunks.items() if k in merged.dims}
         )
     return merged, f"{len(paths)} files like {str(paths[0])!r}", paths
-
-
-#: Member files opened per task when a dask.distributed client is active.
-_OPEN_GROUP = 50
-#: Opening netCDF files is not thread-safe (HDF5); a worker may run several open tasks.
-_OPEN_LOCK = threading.Lock()
-
-
-def _open_members(paths: list[Path], member_dim: str | None) -> list[xr.Dataset]:
-    """Every member file opened lazily (`_one_member`). With a dask.distributed client, by
-    the workers, `_OPEN_GROUP` files per task: opening thousands of files (metadata, decoded
-    times, indexes: about 10 ms each) is otherwise serial work in the client, and the opened
-    datasets travel back as light references to their files."""
-    client = active_client()
-    if client is None or len(paths) <= _OPEN_GROUP:
-        return _open_group(paths, member_dim)
-    groups = [paths[i : i + _OPEN_GROUP] for i in range(0, len(paths), _OPEN_GROUP)]
-    futures = client.map(_open_group_pickled, groups, member_dim=member_dim, pure=False)
-    return [lazy for group in client.gather(futures) for lazy in pickle.loads(group)]
-
-
-def _open_group(paths: list[Path], member_dim: str | None) -> list[xr.Dataset]:
-    with _OPEN_LOCK:
-        return [_one_member(_open_lazy(path), path, member_dim) for path in paths]
-
-
-def _open_group_pickled(paths: list[Path], member_dim: str | None) -> bytes:
-    """`_open_group` on a worker, as bytes, the files closed again before returning.
-
-    Bytes: a worker measures the size of a task's result, and dask's sizeof of an xarray
-    object reads its values, i.e. the whole files. Closed here: otherwise the garbage
-    collector closes them later in whatever thread it runs, which can meet a read of another
-    file in the task thread inside HDF5 (not thread-safe: workers crashed with a double free).
-    The copies in the client reopen their file when read.
-    """
-    with _OPEN_LOCK:
-        opened = [_open_lazy(path) for path in paths]
-        try:
-            members = [_one_member(ds, p, member_dim) for ds, p in zip(opened, paths, strict=True)]
-            return pickle.dumps(members, protocol=pickle.HIGHEST_PROTOCOL)
-        finally:
-            for ds in opened:
-                ds.close()
-
-
-def _one_member(lazy: xr.Dataset, path: Path, member_dim: str | None) -> xr.Dataset:
-    """One member file opened lazily, its size-1 member dimension (if any) dropped."""
-    found = _find_member_dim(lazy, member_dim)
-    if found is not None:
-        if lazy.sizes[found] != 1:
-            raise CoordinateError.make(
-                f"file {str(path)!r}",
-                f"{lazy.sizes[found]} members along {found!r}",
-                "one member per file when several files are given",
-                "pass one file holding all members, or one file per member",
-            )
-        lazy = lazy.isel({found: 0}, drop=True)
-    return lazy
 
 
 def _numeric_fields(lazies: list[xr.Dataset], paths: list[Path]) -> list[str]:
