@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import numpy as np
 import xarray as xr
+from dask import is_dask_collection
 
 from . import timeaxis
 from .errors import CalendarError, GridError, InputError
@@ -178,6 +179,12 @@ def anomalies(da: xr.DataArray, climatology: xr.DataArray | None = None, **kwarg
                 f"{length} days a year like the data ({timeaxis.calendar(da['time'])})",
                 "compute the climatology from data on the same calendar",
             )
+        if is_dask_collection(da.data) and not is_dask_collection(clim.data):
+            # matched lazily from the days the data have: taken from a numpy climatology, the
+            # (time, grid) array would be built here and travel inside the graph (74 MB for a
+            # 40-winter reference)
+            days, slots = np.unique(slots, return_inverse=True)
+            clim = clim.isel(dayofyear=days).chunk()
         matched = clim.isel(dayofyear=xr.DataArray(slots, dims="time")).drop_vars("dayofyear")
         out = da - matched.assign_coords(time=da["time"])
     elif kind == "monthly":
