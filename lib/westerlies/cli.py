@@ -166,6 +166,7 @@ def _cluster(workers: int | None, scheduler: str | None, say):
         return contextlib.nullcontext()
     from distributed import Client, LocalCluster
 
+    stack = contextlib.ExitStack()  # closes the client, then our own cluster
     if scheduler is not None:
         client = Client(scheduler)
     else:
@@ -173,11 +174,13 @@ def _cluster(workers: int | None, scheduler: str | None, say):
             raise ConfigError.make("--workers", str(workers), "at least 1", "pass --workers 2")
         # one thread per worker process: the numerical kernels are already vectorized
         cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True)
+        stack.callback(cluster.close)
         client = Client(cluster)
         client.run(_worker_settings)
+    stack.callback(client.close)
     if say:
         say(f"dask cluster: {client.dashboard_link}")
-    return contextlib.closing(client)
+    return stack
 
 
 def _compare_and_write(
