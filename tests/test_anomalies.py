@@ -187,17 +187,3 @@ def test_anomalies_of_dask_input_stay_lazy():
     assert isinstance(anom.data, dsa.Array)
     assert anom.chunks is not None
     xr.testing.assert_allclose(anom.compute(), anomalies(da))
-
-
-def test_dask_anomalies_from_a_numpy_climatology_keep_the_graph_small():
-    # The day-of-year match is taken lazily from the days the data have: no (time, grid)
-    # array built in the client and shipped inside the graph (it was 74 MB for a reference).
-    da, _ = _daily_field("2001-11-01", "2004-03-30", "360_day", members=1, seed=7)
-    clim = climatology(da)  # numpy-backed
-    anom = anomalies(da.chunk({"time": 100}), climatology=clim)
-    constants = [
-        v.nbytes for v in dict(anom.data.__dask_graph__()).values() if isinstance(v, np.ndarray)
-    ]
-    # at most the climatology; the matched (time, grid) array of one member is larger
-    assert 0 < max(constants, default=0) <= clim.nbytes < da.isel(member=0).nbytes
-    xr.testing.assert_identical(anom.compute(), anomalies(da, climatology=clim))

@@ -16,7 +16,6 @@ from __future__ import annotations
 
 import numpy as np
 import xarray as xr
-from dask import is_dask_collection
 
 from . import timeaxis
 from .errors import CalendarError, GridError, InputError
@@ -179,14 +178,6 @@ def anomalies(da: xr.DataArray, climatology: xr.DataArray | None = None, **kwarg
                 f"{length} days a year like the data ({timeaxis.calendar(da['time'])})",
                 "compute the climatology from data on the same calendar",
             )
-        days, inverse = np.unique(slots, return_inverse=True)
-        if is_dask_collection(da.data) and days.size < slots.size:
-            # Several years: the graph carries the climatology of the days used, matched
-            # lazily, rather than the (time, grid) array built here (74 MB for a 40-winter
-            # reference, sent with the graph to a cluster). Not for a single season, whose
-            # matched array is the smaller: a shared lazy match there changed dask's order
-            # and raised the peak memory of 2 x 1000 members from 2.4 to 3.3 GB.
-            clim, slots = clim.isel(dayofyear=days).chunk(), inverse
         matched = clim.isel(dayofyear=xr.DataArray(slots, dims="time")).drop_vars("dayofyear")
         out = da - matched.assign_coords(time=da["time"])
     elif kind == "monthly":
