@@ -16,8 +16,8 @@ Methods
   alpha, with Hall and York's lambda(alpha) (`hall_york_lambda`, from memory); the calibrated
   p-value is the smallest alpha (grid step 0.001) at which it rejects. Hall and York derived
   lambda for k = 1; using it for k = 2 is an extension their derivation does not cover.
-  The two tests share each replicate's drawn blocks and normal deviates (Box and Muller 1958),
-  which halves the cost of the smoothed bootstrap, the costliest step with many members.
+  The two tests share each replicate's drawn blocks and normal deviates (Box and Muller 1958):
+  drawing them is much of the smoothed bootstrap's cost, the costliest step with many members.
 - Block bootstrap (Efron and Tibshirani 1993, percentile intervals): whole blocks are resampled
   (DESIGN.md principles 2 and 3), never days.
 
@@ -660,8 +660,8 @@ def _smoothed_bootstrap_counts(
     bandwidth in `hs` (see `_mode_tests`, step 2).
 
     Per replicate, in this order from `rng`: the drawn blocks (n_blocks integers), then for
-    its m days h = ceil(m / 2) float32 uniforms u1 and h uniforms u2, made standard normal by
-    `_box_muller`; the days' deviates are the h cosine ones, then the first m - h sine ones.
+    its m days q = ceil(m / 2) float32 uniforms u1 and q uniforms u2, made standard normal by
+    `_box_muller`; the days' deviates are the q cosine ones, then the first m - q sine ones.
     Every bandwidth uses the same drawn blocks and deviates. Positions in bins are
     (x - mean) a + eps b + c with a = 1 / (scale step), b = h / (scale step),
     c = mean / step - start: the same as
@@ -717,7 +717,7 @@ def _smoothed_bootstrap_counts(
         rows = np.repeat(np.arange(n) * n_bins, np.diff(ends)) if n > 1 else 0
         for i in range(hs.size):
             v = np.multiply(days[:m], a_terms[i], out=pos[:m])
-            v += np.multiply(noise[:m], b_terms[i], out=term[:m])  # float32, as h eps
+            v += np.multiply(noise[:m], float(b_terms[i]), out=term[:m])  # float32, as h eps
             v += c_term
             np.clip(v, 0, n_bins - 1 - 1e-9, out=v)
             np.copyto(left[:m], v, casting="unsafe")  # truncation = floor, positions are >= 0
@@ -766,11 +766,12 @@ def _mode_tests(
     Returns (h_k, Silverman's p, calibrated p) per k.
 
     Computation: the tests for the different k share each replicate's drawn blocks and
-    noise eps (common random numbers: each test's replicates are as before, drawing them
-    once halves the cost). Replicates are drawn from `rng` one after another and binned in
-    batches (`_smoothed_bootstrap_counts`); each batch's bisections share one FFT of the
-    counts and a replicate stops bisecting once its comparisons with 1 and the lambda grid
-    are settled (`_critical_bandwidth`, `settle`), which does not change the p-values.
+    noise eps (common random numbers: each test on its own is the smoothed bootstrap above;
+    the draws are made once instead of once per test). Replicates are drawn from `rng` one
+    after another and binned in batches (`_smoothed_bootstrap_counts`); each batch's
+    bisections share one FFT of the counts and a replicate stops bisecting once its
+    comparisons with 1 and the lambda grid are settled (`_critical_bandwidth`, `settle`),
+    which does not change the p-values.
     """
     counts = _linear_bins(x, start, step, n_bins)[None, :]
     h_hi = max(np.ptp(x), 4 * step)
