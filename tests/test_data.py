@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import datetime
 import warnings
 from pathlib import Path
 
@@ -475,3 +476,45 @@ def test_lazy_conversions_stay_lazy(raw_dataset, tmp_path):
         got = _open_quiet(str(tmp_path / "member_*.nc"), chunks={})
     assert isinstance(got["z500"].data, dsa.Array)
     assert got["z500"].attrs["units"] == "m"
+
+
+# --- member files: times decoded once --------------------------------------------------------
+
+
+def _per_file_reference(paths) -> xr.Dataset:
+    """xarray's own reading, file by file (times decoded in each), concatenated on member."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        parts = [xr.open_dataset(p).load() for p in paths]
+    return xr.concat(parts, dim="member", coords="minimal", compat="override", join="exact")
+
+
+@pytest.mark.parametrize("chunks", [None, {"member": 2, "time": 5}])
+def test_member_files_times_decoded_once_equal_xarray_per_file(raw_dataset, tmp_path, chunks):
+    # Time bounds (CF 7.1) carry time units too: decoded as times, not read as a field.
+    ds = raw_dataset(members=3, periods=10, calendar="noleap")
+    ds["time_bnds"] = xr.concat([ds["time"], ds["time"] + datetime.timedelta(days=1)], "nv").T
+    ds["time"].attrs["bounds"] = "time_bnds"
+    ds["time"].encoding["units"] = ds["time_bnds"].encoding["units"] = "days since 1990-01-01"
+    paths = _write_members(ds, tmp_path)
+    got = _open_quiet(paths, chunks=chunks)
+    want = _per_file_reference(paths)
+    np.testing.assert_array_equal(got["time"].values, want["time"].values)
+    assert got["time"].encoding["units"] == want["time"].encoding["units"]
+    assert got["time"].encoding["calendar"] == want["time"].encoding["calendar"]
+    np.testing.assert_allclose(got["z500"].values, want["zg"].sel(plev=500.0).values)
+
+
+def test_member_files_with_differently_encoded_times(raw_dataset, tmp_path):
+    # The same dates in other units in one file: decoded file by file, then they agree.
+    ds = raw_dataset(members=3, periods=10, calendar="noleap")
+    paths = _write_members(ds, tmp_path)
+    other = xr.open_dataset(paths[1]).load()
+    other.close()
+    other["time"].encoding.update(units="hours since 1990-01-01", calendar="noleap")
+    other.to_netcdf(paths[1])
+    with netCDF4.Dataset(paths[1]) as nc:  # stored differently indeed
+        assert nc["time"].units == "hours since 1990-01-01"
+    got = _open_quiet(paths)
+    np.testing.assert_array_equal(got["time"].values, _per_file_reference(paths)["time"].values)
+    assert got.sizes["member"] == 3
