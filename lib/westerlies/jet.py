@@ -239,13 +239,14 @@ def jet_from_profile(
     profile: xr.DataArray,
     *,
     used: list[float],
-    sector: Sequence[float] = (-60, 0),
-    lat_range: Sequence[float] = (15, 75),
-    cutoff_days: float | None = 10,
-    n_weights: int = 61,
+    sector: Sequence[float],
+    lat_range: Sequence[float],
+    cutoff_days: float | None,
+    n_weights: int,
     edge: EdgeTreatment = "nan",
 ) -> xr.Dataset:
-    """The second half of `jet_index` on an in-memory `sector_profile` (same keywords)."""
+    """The second half of `jet_index` on an in-memory `sector_profile`, with the keywords of
+    `jet_index` (all but `edge` given explicitly: the defaults are `jet_index`'s)."""
     gaps = profile.isnull().any("lat")
     n_missing = int(gaps.sum())
     if n_missing == gaps.size:
