@@ -629,7 +629,7 @@ def part_two(args) -> None:
         f"{100 * engine_wall / total:.1f}% of the suite's wall time (an upper bound: a call "
         f"waiting for a core beside other threads counts; summed over threads {summed:.2f}s)"
     )
-    inner = [c for c in timer.inner]
+    inner = timer.inner
     if inner:
         rest = length(without(spans, [span for _, span, _ in inner]))
         rest_cpu = engine_cpu - sum(c[2] for c in inner)
