@@ -298,15 +298,9 @@ def _moments(x, *, cross: bool) -> tuple[np.ndarray, np.ndarray | None, np.ndarr
     n, p = x.shape
     if _is_dask(x):
         import dask
-        import dask.array as da
 
-        x = x.rechunk({1: -1})
-        filled = da.where(da.isnan(x), 0.0, x.astype(np.float64))
-        parts = [filled.sum(axis=0), da.isnan(x).sum(axis=0)]
-        if cross:
-            parts.append(filled.T @ filled)
-        out = dask.compute(*parts)
-        return out[0], (out[2] if cross else None), np.asarray(out[1])
+        # one task per row chunk running this function on it, then a tree of sums
+        return dask.compute(_tree_sum(_per_row_chunk(x, _moments, cross=cross)))[0]
     total = np.zeros(p)
     count = np.zeros(p, dtype=np.int64)
     xtx = np.zeros((p, p)) if cross else None
@@ -330,16 +324,13 @@ def _project_matrix(
     x (n, p), valid (p,) bool, mean (q,), vectors (q, k) with q valid columns -> (n, k), (n,).
     Row chunk by row chunk (or dask chunk by chunk): the data are never copied whole.
     """
-    offset = mean @ vectors
     if _is_dask(x):
         import dask
-        import dask.array as da
 
-        x = x.rechunk({1: -1})[:, valid]
-        nan = da.isnan(x)
-        prod = da.where(nan, 0.0, x.astype(np.float64)) @ vectors
-        out, bad = dask.compute(prod, nan.any(axis=1))
-        return out - offset, np.asarray(bad)
+        # one task per row chunk running this function on it
+        parts = dask.compute(*_per_row_chunk(x, _project_matrix, valid, mean, vectors))
+        return np.concatenate([o for o, _ in parts]), np.concatenate([b for _, b in parts])
+    offset = mean @ vectors
     n = x.shape[0]
     out = np.empty((n, vectors.shape[1]))
     bad = np.zeros(n, dtype=bool)
@@ -352,6 +343,32 @@ def _project_matrix(
             block = np.where(nan, 0.0, block)
         out[rows] = block @ vectors - offset
     return out, bad
+
+
+def _per_row_chunk(x, func, *args, **kwargs) -> list:
+    """``func(chunk, *args, **kwargs)`` as one dask task per row chunk of the dask array x,
+    all columns in each chunk: the numpy kernel above runs in each task, rather than a graph
+    of several tasks per chunk (isnan, where, astype, matmul, ...), whose per-task overhead
+    on a cluster measured as much as the arithmetic."""
+    import dask
+
+    blocks = x.rechunk({1: -1}).to_delayed().ravel()
+    return [dask.delayed(func, pure=True)(b, *args, **kwargs) for b in blocks]
+
+
+def _tree_sum(parts: list, split_every: int = 4):
+    """Elementwise sum of delayed tuples of arrays (None entries stay None), as a tree."""
+    import dask
+
+    def add(*terms):
+        return tuple(None if t[0] is None else sum(t[1:], t[0]) for t in zip(*terms, strict=True))
+
+    while len(parts) > 1:
+        parts = [
+            dask.delayed(add, pure=True)(*parts[i : i + split_every])
+            for i in range(0, len(parts), split_every)
+        ]
+    return parts[0]
 
 
 def _dense_centred(x, valid: np.ndarray, mean: np.ndarray) -> np.ndarray:
