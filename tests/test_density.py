@@ -255,23 +255,26 @@ def _reference_critical_bandwidth(counts, k, low, high, step, window, rtol=1e-4)
 def _reference_bootstrap_counts(x, blocks, n_blocks, n_rows, rng, hs, start, step, n_bins):
     """Replicate by replicate, the textbook smoothed bootstrap (Silverman 1986, section
     6.4.1: y = mean + (x* - mean + h eps) / sqrt(1 + h^2 / var)) with the documented random
-    stream: blocks, then ceil(m / 2) uniforms u1 and as many u2, Box and Muller's (1958)
-    cos and sin deviates written out pair by pair."""
+    stream: blocks, then ceil(M / 2) uniforms u1 and as many u2 for M = n_blocks x (longest
+    block) slots, Box and Muller's (1958) cos and sin deviates written out pair by pair, the
+    drawn blocks' days taking the deviates of their slots."""
     from westerlies.density import _linear_bins
 
     mean, var = x.mean(), x.var(ddof=1)
+    length = np.bincount(blocks).max()
     out = np.empty((len(hs), n_rows, n_bins))
     for r in range(n_rows):
-        drawn = np.bincount(rng.integers(0, n_blocks, n_blocks), minlength=n_blocks)
-        resampled = np.repeat(x, drawn[blocks])
-        half = (resampled.size + 1) // 2
+        drawn = rng.integers(0, n_blocks, n_blocks)
+        half = (n_blocks * length + 1) // 2
         u1 = rng.random(half, dtype=np.float32).astype(float)
         u2 = rng.random(half, dtype=np.float32).astype(float)
         radius = np.sqrt(-2 * np.log(1 - u1))
         eps = np.concatenate([radius * np.cos(2 * np.pi * u2), radius * np.sin(2 * np.pi * u2)])
-        eps = eps[: resampled.size]
+        eps = eps[: n_blocks * length].reshape(n_blocks, length)
+        resampled = np.concatenate([x[blocks == b] for b in drawn])
+        noise = np.concatenate([eps[j, : (blocks == b).sum()] for j, b in enumerate(drawn)])
         for i, h in enumerate(hs):
-            y = mean + (resampled - mean + h * eps) / np.sqrt(1 + h**2 / var)
+            y = mean + (resampled - mean + h * noise) / np.sqrt(1 + h**2 / var)
             out[i, r] = _linear_bins(y, start, step, n_bins)
     return out
 
@@ -367,13 +370,15 @@ def test_bootstrap_counts_repeat_the_replicate_by_replicate_draws(monkeypatch):
     # The random stream and the binned numbers of the textbook formula drawn one replicate
     # at a time, to the float32 rounding of the fast path's deviates (about 1e-6 of a
     # deviate, 3e-5 of a day's weight here; the reference computes them in float64);
-    # unequal blocks (one long, several one-day) also exercise growing the buffers, and
-    # several bandwidths share the draws.
+    # unequal blocks (one long, several one-day, days of different blocks interleaved)
+    # exercise the padded table, and several bandwidths share the draws.
     import westerlies.density as density
 
     rng = np.random.default_rng(23)
     x = np.concatenate([rng.normal(46, 6, 101), rng.normal(46, 6, 4)])
     blocks = np.concatenate([np.zeros(101, int), np.arange(1, 5)])
+    mixed = np.argsort(np.concatenate([np.arange(101), [3.5, 40.5, 41.5, 99.5]]))
+    x, blocks = x[mixed], blocks[mixed]
     args = dict(start=200, step=0.1, n_bins=500)
     slow = _reference_bootstrap_counts(
         x, blocks, 5, 200, np.random.default_rng(7), (2.7, 1.2), **args

@@ -659,15 +659,23 @@ def _smoothed_bootstrap_counts(
     """(len(hs), n_rows, n_bins) linear-binned smoothed-bootstrap samples, one set per
     bandwidth in `hs` (see `_mode_tests`, step 2).
 
-    Per replicate, in this order from `rng`: the drawn blocks (n_blocks integers), then for
-    its m days q = ceil(m / 2) float32 uniforms u1 and q uniforms u2, made standard normal by
-    `_box_muller`; the days' deviates are the q cosine ones, then the first m - q sine ones.
-    Every bandwidth uses the same drawn blocks and deviates. Positions in bins are
-    (x - mean) a + eps b + c with a = 1 / (scale step), b = h / (scale step),
-    c = mean / step - start: the same as
+    The days are laid out as a table of n_blocks rows (blocks in order, each block's days in
+    their order in `x`) and L columns, L the longest block; shorter rows are padded. Per
+    replicate, in this order from `rng`: the drawn blocks (n_blocks integers; the replicate
+    is their rows in the order drawn, M = n_blocks L slots), then q = ceil(M / 2) float32
+    uniforms u1 and q uniforms u2, made standard normal by `_box_muller`; the slots' deviates
+    are the q cosine ones, then the first M - q sine ones (a padding slot's deviate is
+    drawn and not used). Every bandwidth uses the same drawn blocks and deviates.
+
+    Positions in bins are (x - mean) a + eps b + c with a = 1 / (scale step),
+    b = h / (scale step), c = mean / step - start: the same as
     `_linear_bins(mean + (x - mean + h eps) / scale, ...)` up to rounding, in fewer passes
     over buffers that are reused across replicates (fresh large arrays cost more than the
-    arithmetic).
+    arithmetic). Instead of clipping every position to the grid, the positions are binned
+    on a grid widened to hold them all (|eps| <= 5.8) and the bins beyond the ends are added
+    to the end bins, which is what clipping does; padding lands beyond the widened grid and
+    is left out. A bin's right-hand shares are the sum of its positions less the bin number
+    times its count (one weighted count instead of computing every fraction).
     """
     hs = np.asarray(hs, dtype=float)
     mean, var = x.mean(), x.var(ddof=1)
@@ -675,62 +683,62 @@ def _smoothed_bootstrap_counts(
     a_terms, b_terms = 1 / (scales * step), hs / (scales * step)
     c_term = mean / step - start
     centred = x - mean
+    # Widened grid per bandwidth: wide bin = grid bin + shift, every day's position in
+    # [0, width - 2] (deviates are at most 5.8 in size, `_box_muller`; 6 with a margin).
+    reach = 6.0 * b_terms + 2
+    shift = np.maximum(0, np.ceil(reach - c_term - centred.min() * a_terms)).astype(int)
+    top = np.maximum(np.ceil(centred.max() * a_terms + c_term + reach), n_bins)
+    width = (top + shift).astype(int) + 2
+    # The table: gathering whole rows costs far less than repeating days one by one.
+    sizes = np.bincount(blocks, minlength=n_blocks)
+    length = int(sizes.max())
+    padding = float(np.max((width + reach - c_term - shift) / a_terms))  # beyond every grid
+    table = np.full((n_blocks, length), padding)
+    order = np.argsort(blocks, kind="stable")
+    slot = np.arange(x.size) - np.repeat(np.cumsum(sizes) - sizes, sizes)
+    table[blocks[order], slot] = centred[order]
+
+    slots = n_blocks * length
+    pairs = (slots + 1) // 2
+    per_pass = max(1, _PASS_DAYS // slots)
+    days = np.empty((per_pass, n_blocks, length))
+    u1, u2 = np.empty((per_pass, pairs), np.float32), np.empty((per_pass, pairs), np.float32)
+    normal = np.empty((2, per_pass, pairs), np.float32)
+    noise = np.empty((per_pass, slots), np.float32)
+    pos, left = np.empty(per_pass * slots), np.empty(per_pass * slots, dtype=np.intp)
+    term = np.empty(per_pass * slots, np.float32)
+    bin_numbers = np.arange(width.max(), dtype=float)
     out = np.empty((hs.size, n_rows, n_bins))
-    per_pass = max(1, _PASS_DAYS // max(x.size, 1))
-    size = 2 * per_pass * x.size + 2  # grown below if the drawn blocks hold more days
-    days, u1, u2 = np.empty(size), np.empty(size, np.float32), np.empty(size, np.float32)
-    normal, noise = np.empty((2, size), np.float32), np.empty(size, np.float32)
-    pos, frac, left = np.empty(size), np.empty(size), np.empty(size, dtype=np.intp)
-    repeats = np.empty(x.size, dtype=np.intp)
     for first in range(0, n_rows, per_pass):
         n = min(per_pass, n_rows - first)
-        ends, starts = [0], [0]  # replicate r: days ends[r]:ends[r+1], pairs from starts[r]
-        for _ in range(n):
-            # Whole blocks with replacement: each day repeated as often as its block is drawn.
-            drawn = np.bincount(rng.integers(0, n_blocks, n_blocks), minlength=n_blocks)
-            np.take(drawn, blocks, out=repeats)
-            m = int(repeats.sum())
-            at, pairs_end = ends[-1], starts[-1] + (m + 1) // 2
-            if at + m > days.size:
-                grown = 2 * (at + m)
-                # np.resize keeps the start: the replicates drawn so far in this pass.
-                days, u1, u2 = np.resize(days, grown), np.resize(u1, grown), np.resize(u2, grown)
-                normal, noise = np.empty((2, grown), np.float32), np.empty(grown, np.float32)
-                pos, frac, left = np.empty(grown), np.empty(grown), np.empty(grown, np.intp)
-            for s in range(0, x.size, 2**15):  # pieces, to keep the temporary small
-                part = np.repeat(centred[s : s + 2**15], repeats[s : s + 2**15])
-                days[at : at + part.size] = part
-                at += part.size
-            rng.random(out=u1[starts[-1] : pairs_end], dtype=np.float32)
-            rng.random(out=u2[starts[-1] : pairs_end], dtype=np.float32)
-            ends.append(at)
-            starts.append(pairs_end)
-        p = starts[-1]
-        _box_muller(u1[:p], u2[:p], normal[0, :p], normal[1, :p])
-        for (a, b), s in zip(itertools.pairwise(ends), starts, strict=False):
-            half = (b - a + 1) // 2  # each replicate's deviates next to its days
-            noise[a : a + half] = normal[0, s : s + half]
-            noise[a + half : b] = normal[1, s : s + b - a - half]
-        m = ends[-1]
-        term = normal.reshape(-1)  # free again: a float32 buffer for h eps
-        # All replicates of the pass in one histogram: row r's bins are offset by r n_bins.
-        rows = np.repeat(np.arange(n) * n_bins, np.diff(ends)) if n > 1 else 0
+        for r in range(n):
+            np.take(table, rng.integers(0, n_blocks, n_blocks), axis=0, out=days[r])
+            rng.random(out=u1[r], dtype=np.float32)
+            rng.random(out=u2[r], dtype=np.float32)
+        _box_muller(u1[:n], u2[:n], normal[0, :n], normal[1, :n])
+        noise[:n, :pairs] = normal[0, :n]
+        noise[:n, pairs:] = normal[1, :n, : slots - pairs]
+        m = n * slots
         for i in range(hs.size):
-            v = np.multiply(days[:m], a_terms[i], out=pos[:m])
-            v += np.multiply(noise[:m], float(b_terms[i]), out=term[:m])  # float32, as h eps
-            v += c_term
-            np.clip(v, 0, n_bins - 1 - 1e-9, out=v)
+            v = np.multiply(days[:n].reshape(-1), a_terms[i], out=pos[:m])
+            v += np.multiply(noise[:n].reshape(-1), float(b_terms[i]), out=term[:m])  # float32
+            v += c_term + shift[i]
             np.copyto(left[:m], v, casting="unsafe")  # truncation = floor, positions are >= 0
-            np.subtract(v, left[:m], out=frac[:m])
-            if n > 1:
-                left[:m] += rows
-            # Left bins get 1 - frac: the day counts less the right bins' frac sums, which
-            # are bincount(left + 1, frac) = bincount(left, frac) moved up one bin (left <=
-            # n_bins - 2 within a row, so nothing moves into the next row).
-            right = np.bincount(left[:m], frac[:m], n * n_bins)
-            hist = np.bincount(left[:m], None, n * n_bins) - right
-            hist[1:] += right[:-1]
-            out[i, first : first + n] = hist.reshape(n, n_bins)
+            for r in range(n):
+                at = slice(r * slots, (r + 1) * slots)
+                count = np.bincount(left[at], None, width[i])[: width[i]]
+                # right-hand shares: the sum of (position - left bin) over each bin's days;
+                # the left bin gets the rest of each day, the next bin up its share
+                right = (
+                    np.bincount(left[at], v[at], width[i])[: width[i]]
+                    - bin_numbers[: width[i]] * count
+                )
+                hist = count - right
+                hist[1:] += right[:-1]
+                row = out[i, first + r]
+                row[1:-1] = hist[shift[i] + 1 : shift[i] + n_bins - 1]
+                row[0] = hist[: shift[i] + 1].sum()  # folded: clipped to the first bin
+                row[-1] = hist[shift[i] + n_bins - 1 :].sum()  # and to the last
     return out
 
 
