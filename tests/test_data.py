@@ -15,7 +15,14 @@ import xarray as xr
 
 from westerlies import timeaxis
 from westerlies.data import open_dataset
-from westerlies.errors import GridError, InputError, InputWarning, TimeStepError, UnitsError
+from westerlies.errors import (
+    CoordinateError,
+    GridError,
+    InputError,
+    InputWarning,
+    TimeStepError,
+    UnitsError,
+)
 
 G0 = 9.80665  # standard gravity, m s-2: CGPM (1901), as adopted by WMO
 
@@ -518,3 +525,129 @@ def test_member_files_with_differently_encoded_times(raw_dataset, tmp_path):
     got = _open_quiet(paths)
     np.testing.assert_array_equal(got["time"].values, _per_file_reference(paths)["time"].values)
     assert got.sizes["member"] == 3
+
+
+# --- member files alike: read in groups without opening each with xarray ---------------------
+
+
+def _packed_members(raw_dataset, tmp_path, scale_of_second=0.5) -> list[Path]:
+    """Member files with zg packed as int16 (scale, offset, _FillValue) and missing values."""
+    ds = raw_dataset(members=4, periods=12)
+    zg = ds["zg"].values.copy()
+    zg[1, 3, 3, 1, :] = np.nan
+    zg[2, :, 3, 4, 5] = np.nan
+    ds["zg"].values = zg
+    paths = []
+    for i in range(4):
+        one = ds.isel(member=i, drop=True)
+        scale = scale_of_second if i == 1 else 0.5
+        one["zg"].encoding = {
+            "dtype": "int16",
+            "scale_factor": scale,
+            "add_offset": 5000.0,
+            "_FillValue": -32767,
+        }
+        path = tmp_path / f"member_{i:03d}.nc"
+        one.to_netcdf(path)
+        paths.append(path)
+    return paths
+
+
+def test_alike_member_files_read_in_groups_equal_xarray_per_file(
+    raw_dataset, tmp_path, monkeypatch
+):
+    # Source of truth: xarray's own reading file by file (decoding of packed values, missing
+    # values and times); only the first file is opened with xarray on the fast path.
+    import westerlies.data as data
+    from westerlies.member_files import FileStack
+
+    paths = _packed_members(raw_dataset, tmp_path)
+    opened = []
+    real = data._open_lazy
+    monkeypatch.setattr(data, "_open_lazy", lambda p, **kw: opened.append(p) or real(p, **kw))
+    got = _open_quiet(paths, chunks={"member": 3, "time": 5})
+    assert opened == [paths[0]]
+    want = _per_file_reference(paths)
+    np.testing.assert_array_equal(got["time"].values, want["time"].values)
+    np.testing.assert_allclose(got["z500"].values, want["zg"].sel(plev=500.0).values)
+    assert np.isnan(got["z500"].values).sum() == np.isnan(want["zg"].sel(plev=500.0)).sum() > 0
+    np.testing.assert_allclose(got["u"].values, want["ua"].values)
+    # the reader's own indexing against numpy's on the decoded values, key by key
+    stack = FileStack(paths, "zg", want["zg"].shape[1:], {}, np.float64)
+    with netCDF4.Dataset(paths[0]) as nc:
+        stack.attrs = {k: nc["zg"].getncattr(k) for k in nc["zg"].ncattrs()}
+    full = want["zg"].values
+    keys = [
+        (slice(None),),
+        (slice(1, 3), slice(None, None, -1), 3),
+        (2, slice(2, 11, 4), np.array([4, 0, 2]), slice(None, None, -2)),
+        (np.array([3, 0]), -1, slice(None), slice(1, 2), np.array([-1, 0, 5])),
+        (slice(0, 0), slice(None)),
+    ]
+    for key in keys:
+        np.testing.assert_array_equal(stack[key], _numpy_outer(full, key), err_msg=str(key))
+
+
+def _numpy_outer(values: np.ndarray, key: tuple) -> np.ndarray:
+    """values[key] with every 1-D integer array taken along its own axis (outer indexing)."""
+    out, axis = values, 0
+    for index in key:
+        if isinstance(index, np.ndarray):
+            out = np.take(out, index, axis=axis)
+            axis += 1
+        else:
+            out = out[(slice(None),) * axis + (index,)]
+            axis += isinstance(index, slice)
+    return out
+
+
+def test_member_files_packed_differently_are_each_decoded(raw_dataset, tmp_path, monkeypatch):
+    # One file packed with another scale factor: not alike, so every file is opened with
+    # xarray and decoded with its own attributes (xarray's per-file reading is the truth).
+    import westerlies.data as data
+
+    paths = _packed_members(raw_dataset, tmp_path, scale_of_second=0.25)
+    opened = []
+    real = data._open_lazy
+    monkeypatch.setattr(data, "_open_lazy", lambda p, **kw: opened.append(p) or real(p, **kw))
+    got = _open_quiet(paths, chunks={"member": 2, "time": 5})
+    assert len(opened) > len(paths) - 1  # the slow path opened each file
+    want = _per_file_reference(paths)
+    np.testing.assert_allclose(got["z500"].values, want["zg"].sel(plev=500.0).values)
+
+
+def test_member_file_on_another_grid_is_refused_with_chunks(raw_dataset, tmp_path):
+    ds = raw_dataset(members=3, periods=6)
+    paths = _write_members(ds, tmp_path)
+    other = ds.isel(member=2, drop=True).assign_coords(lat=ds["lat"] + 1.0)
+    other.to_netcdf(paths[2])
+    with pytest.raises(CoordinateError, match="grids or times that differ"):
+        _open_quiet(paths, chunks={"member": 2, "time": 5})
+
+
+def test_group_reads_and_xarray_reads_share_one_lock(raw_dataset, tmp_path):
+    # netCDF-C and HDF5 are not thread-safe: the group reader takes xarray's own lock. Two
+    # locks taken in different orders by xarray and by the reader deadlocked a threaded run
+    # (found in tests/test_scaling.py); here threads read both ways side by side.
+    import threading
+    import time
+
+    from westerlies.member_files import FileStack
+
+    paths = _write_members(raw_dataset(members=2, periods=20), tmp_path)
+    lazy = xr.open_dataset(paths[0])["ua"].variable  # xarray's lazy reads, under its lock
+    stack = FileStack(paths, "ua", lazy.shape, {}, np.float64)
+    done = []
+
+    def work():
+        for _ in range(100):
+            assert lazy[:2].values.shape[0] == stack[1, :3].shape[0] - 1
+        done.append(True)
+
+    threads = [threading.Thread(target=work, daemon=True) for _ in range(6)]
+    for thread in threads:
+        thread.start()
+    deadline = time.monotonic() + 60
+    for thread in threads:
+        thread.join(timeout=max(0.0, deadline - time.monotonic()))
+    assert len(done) == len(threads), "reader threads still waiting: a lock-order deadlock"

@@ -22,7 +22,7 @@ import cftime
 import numpy as np
 import xarray as xr
 
-from . import timeaxis, units
+from . import member_files, timeaxis, units
 from .errors import CoordinateError, GridError, InputError, InputWarning, TimeStepError, UnitsError
 
 __all__ = ["CANONICAL_VARIABLES", "canonicalize", "open_dataset"]
@@ -207,6 +207,12 @@ def _read(source, *, chunks, member_dim):
     paths = _paths(source)
     if len(paths) == 1:
         return _open_one(paths[0], chunks), f"file {str(paths[0])!r}", None
+    label = f"{len(paths)} files like {str(paths[0])!r}"
+    grouped = isinstance(chunks, Mapping) and "member" in chunks
+    if grouped:
+        merged = _alike_member_files(paths, chunks, member_dim)
+        if merged is not None:
+            return merged, label, paths
     # Times stay encoded while the files are opened and concatenated, then are decoded once:
     # decoding every file's times and indexing them is 40% of the cost of opening thousands
     # of member files. Member files whose times are encoded differently are decoded one by one.
@@ -227,7 +233,6 @@ def _read(source, *, chunks, member_dim):
     encodings = {_time_encoding(lazy) for lazy in lazies}
     if len(encodings) > 1:
         lazies = [_decode_times(lazy) for lazy in lazies]
-    grouped = isinstance(chunks, Mapping) and "member" in chunks
     # Grouped: the numeric fields are read by groups of files (`_grouped`); the rest (times,
     # grid, bounds) is concatenated here, which checks that every file has the same grid and
     # times. Otherwise every variable is concatenated from the files, chunked as asked.
@@ -254,7 +259,29 @@ def _read(source, *, chunks, member_dim):
         )
     if len(encodings) == 1:
         merged = _decode_times(merged)
-    return merged, f"{len(paths)} files like {str(paths[0])!r}", paths
+    return merged, label, paths
+
+
+def _alike_member_files(paths: list[Path], chunks: Mapping, member_dim) -> xr.Dataset | None:
+    """Member files read in groups without opening every file with xarray (see
+    `westerlies.member_files`), when the files hold no member dimension and all have the
+    first file's variables, attributes, grid and times; else None (each file is then opened
+    with xarray, which also says what differs)."""
+    first = _open_lazy(paths[0], decode_times=False)
+    if _find_member_dim(first, member_dim) is not None:
+        return None
+    encoded = {name for name, _, _ in _time_encoding(first)}
+    fields = [n for n in _numeric_fields([first], paths[:1]) if n not in encoded]
+    if not member_files.same_layout(paths[0], paths[1:], fields):
+        return None
+    merged = first.drop_vars(fields)
+    # every file has the same values of these: as concatenating the files would give them
+    for name in list(merged.data_vars):
+        merged[name] = merged[name].expand_dims(member=len(paths))
+    merged = merged.assign_coords(member=np.arange(len(paths)))
+    merged = member_files.grouped_fields(merged, first, paths, fields, int(chunks["member"]))
+    merged = merged.chunk({k: v for k, v in chunks.items() if k in merged.dims})
+    return _decode_times(merged)
 
 
 def _time_encoding(ds: xr.Dataset) -> frozenset[tuple[str, str, str | None]]:
@@ -304,44 +331,20 @@ def _grouped(
     lazy (decoded, locked) reads; a selection made later (a sector, a level) is still read
     alone, as dask hands the combined slice to the reader.
     """
-    import dask.array as da
-
     out = merged.copy()
     for name in fields:
         ref = lazies[0][name]
         # one reader per group: a task then carries only its own files' handles
-        data = da.concatenate(
-            [
-                da.from_array(
-                    _MemberStack([lazy[name].variable for lazy in lazies[i : i + size]], ref.dtype),
-                    chunks=(size, *ref.shape),
-                    asarray=False,
-                )
-                for i in range(0, len(lazies), size)
-            ],
-            axis=0,
+        stacks = [
+            member_files.MemberStack(
+                [lazy[name].variable for lazy in lazies[i : i + size]], ref.dtype
+            )
+            for i in range(0, len(lazies), size)
+        ]
+        out[name] = xr.Variable(
+            ("member", *ref.dims), member_files.stacked(stacks), ref.attrs, ref.encoding
         )
-        out[name] = xr.Variable(("member", *ref.dims), data, ref.attrs, ref.encoding)
     return out
-
-
-class _MemberStack:
-    """Several member files' lazily opened variable seen as one (member, ...) array: indexing
-    with slices reads only the selected part of each selected file."""
-
-    def __init__(self, variables: list[xr.Variable], dtype) -> None:
-        self.variables = variables
-        self.dtype = np.dtype(dtype)
-        self.shape = (len(variables), *variables[0].shape)
-        self.ndim = len(self.shape)
-
-    def __getitem__(self, key) -> np.ndarray:
-        key = key if isinstance(key, tuple) else (key,)
-        first, rest = key[0], key[1:]
-        picked = [self.variables[i] for i in np.arange(len(self.variables))[first].ravel()]
-        values = [np.asarray(v[rest].values, dtype=self.dtype) for v in picked]
-        stacked = np.stack(values) if values else np.empty((0, *self.shape[1:]), self.dtype)
-        return stacked[0] if np.ndim(first) == 0 and not isinstance(first, slice) else stacked
 
 
 # ---------------------------------------------------------------------------- coordinates
