@@ -274,7 +274,9 @@ def _alike_member_files(paths: list[Path], chunks: Mapping, member_dim) -> xr.Da
     fields = [n for n in _numeric_fields([first], paths[:1]) if n not in encoded]
     if not member_files.same_layout(paths[0], paths[1:], fields):
         return None
-    merged = first.drop_vars(fields)
+    # in memory (grid, times, bounds: small), so no xarray file manager of the first file
+    # travels to a cluster's workers with the graph
+    merged = first.drop_vars(fields).load()
     # every file has the same values of these: as concatenating the files would give them
     for name in list(merged.data_vars):
         merged[name] = merged[name].expand_dims(member=len(paths))

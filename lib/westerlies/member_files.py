@@ -128,6 +128,11 @@ class FileStack:
         self, paths: list[Path], name: str, shape: tuple, attrs: dict, dtype: np.dtype
     ) -> None:
         self.paths = [str(p) for p in paths]
+        # Travels with the reader to a cluster's workers: unpickled, xarray's lock is the one
+        # of the file managers sent from the same client, which close their files when they
+        # are garbage collected (in any thread) unless this lock is held. The worker's own
+        # module-level lock would be another lock there, and HDF5 then failed under reads.
+        self.lock = _NETCDF_LOCK
         self.name = name
         self.attrs = attrs
         self.dtype = np.dtype(dtype)
@@ -148,7 +153,7 @@ class FileStack:
 
     def _read(self, path: str, rest: tuple) -> np.ndarray:
         read, after = _read_key(rest, self.shape[1:])
-        with _NETCDF_LOCK, netCDF4.Dataset(path) as nc:
+        with self.lock, netCDF4.Dataset(path) as nc:
             var = nc.variables[self.name]
             var.set_auto_maskandscale(False)
             raw = np.asarray(var[read] if read is not None else var[...])
