@@ -651,3 +651,31 @@ def test_group_reads_and_xarray_reads_share_one_lock(raw_dataset, tmp_path):
     for thread in threads:
         thread.join(timeout=max(0.0, deadline - time.monotonic()))
     assert len(done) == len(threads), "reader threads still waiting: a lock-order deadlock"
+
+
+def _lock_ids(stack, store) -> tuple[list[int], list[int]]:
+    """Ids of the underlying locks of a reader and of an xarray netCDF4 file store."""
+    return [id(x.lock) for x in stack.lock.locks], [id(x.lock) for x in store.lock.locks]
+
+
+def test_group_reader_on_a_worker_shares_the_lock_of_xarray_files_sent_along(raw_dataset, tmp_path):
+    # On a cluster's worker, xarray's file managers sent from the client close their files
+    # when collected unless their (unpickled) lock is held; the reader must hold that same
+    # lock, not the worker's own module-level one (HDF5 failed under reads with 2 workers).
+    distributed = pytest.importorskip("distributed")
+    from westerlies.member_files import FileStack
+
+    paths = _write_members(raw_dataset(members=2, periods=5), tmp_path)
+    lazy = xr.open_dataset(paths[0])["ua"].variable
+    stack = FileStack(paths, "ua", lazy.shape, {}, np.float64)
+    store = lazy._data
+    while not hasattr(store, "datastore"):  # xarray's wrappers around the file's array
+        store = store.array
+    with (
+        distributed.LocalCluster(
+            n_workers=1, threads_per_worker=1, processes=True, dashboard_address=None
+        ) as cluster,
+        distributed.Client(cluster) as client,
+    ):
+        ours, xarrays = client.submit(_lock_ids, stack, store.datastore).result()
+    assert ours == xarrays
