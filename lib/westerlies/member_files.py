@@ -38,7 +38,7 @@ def same_layout(first: Path, others: list[Path], fields: list[str]) -> bool:
             with _NETCDF_LOCK, netCDF4.Dataset(path) as nc:
                 if not _matches(nc, reference, fields):
                     return False
-        except (OSError, KeyError, ValueError):
+        except (OSError, KeyError, ValueError, RuntimeError):
             return False  # opened one by one with xarray, which says what is wrong
     return True
 
@@ -167,8 +167,12 @@ class FileStack:
                     else raw[(slice(None),) * axis + (index,)]
                 )
         dims = tuple(f"dim_{i}" for i in range(raw.ndim))
+        # as the first file was opened (decode_times=False, which also leaves time spans)
         decoded = xr.conventions.decode_cf_variable(
-            self.name, xr.Variable(dims, raw, self.attrs), decode_times=False
+            self.name,
+            xr.Variable(dims, raw, self.attrs),
+            decode_times=False,
+            decode_timedelta=False,
         )
         return np.asarray(decoded.values, dtype=self.dtype)
 
