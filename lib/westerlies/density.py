@@ -665,7 +665,9 @@ def _smoothed_bootstrap_counts(
     is their rows in the order drawn, M = n_blocks L slots), then q = ceil(M / 2) float32
     uniforms u1 and q uniforms u2, made standard normal by `_box_muller`; the slots' deviates
     are the q cosine ones, then the first M - q sine ones (a padding slot's deviate is
-    drawn and not used). Every bandwidth uses the same drawn blocks and deviates.
+    drawn and not used). Every bandwidth uses the same drawn blocks and deviates. Member-
+    seasons are nearly equal in length; blocks of very unequal length cost the longest one's
+    length each.
 
     Positions in bins are (x - mean) a + eps b + c with a = 1 / (scale step),
     b = h / (scale step), c = mean / step - start: the same as
