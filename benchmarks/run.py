@@ -304,9 +304,9 @@ def run_benchmark(args: argparse.Namespace, reuse: bool) -> dict:
         cmd += ["--overwrite", "--quiet"] + ([] if n is None else ["--workers", str(n)])
         print(f"step {key} ...", flush=True)
         steps[key] = measure(cmd, runs / f"{key}.log", args.timeout, args.max_rss_gb)
-        steps[key]["timings_s"] = suite_timings(out)
         if steps[key]["status"] != "ok":
-            break
+            break  # (a failed run's output directory may hold an earlier run's timings)
+        steps[key]["timings_s"] = suite_timings(out)
     if workload.name == "small" and steps["suite"]["status"] == "ok" and not args.skip_plain:
         args.suite_out = runs / "out"
         steps["plain"] = internal("plain", runs)
@@ -316,17 +316,19 @@ def run_benchmark(args: argparse.Namespace, reuse: bool) -> dict:
 
 def ratios(steps: dict) -> dict:
     """The ratios the targets are stated in."""
-    read = steps.get("read", {}).get("wall_s")
-    suite = steps.get("suite", {}).get("wall_s")
+
+    def wall(name: str) -> float | None:  # only a step that ran to the end counts
+        step = steps.get(name, {})
+        return step.get("wall_s") if step.get("status") == "ok" else None
+
+    read, suite = wall("read"), wall("suite")
     out = {"suite_over_read": _ratio(suite, read)}
     plain = steps.get("plain", {})
     if plain.get("status") == "ok":
         full = plain["wall_s"] + plain["result"]["extra_for_full_resamples_s"]
         out["plain_wall_full_resamples_s"] = round(full, 1)
         out["plain_over_suite"] = _ratio(full, suite)
-    one = steps.get("suite_workers_1", {}).get("wall_s")
-    two = steps.get("suite_workers_2", {}).get("wall_s")
-    out["speedup_2_over_1"] = _ratio(one, two)
+    out["speedup_2_over_1"] = _ratio(wall("suite_workers_1"), wall("suite_workers_2"))
     return out
 
 
@@ -355,7 +357,7 @@ def print_table(report: dict) -> None:
         ),
         ("2 workers vs 1 (>= 1.6)", r.get("speedup_2_over_1"), ">=", TARGETS["speedup_2_over_1"]),
     ]
-    if large and suite:
+    if large and suite.get("status") == "ok":
         peak = max(suite.get("peak_rss_tree_gb", 0), suite.get("peak_rss_process_gb", 0))
         rows.append(("suite peak RSS GB (large: < 3)", peak, "<", TARGETS["peak_rss_gb"]))
     print(f"\n{'target':<34}{'measured':>10}{'target':>10}  met")

@@ -272,7 +272,8 @@ def _alike_member_files(paths: list[Path], chunks: Mapping, member_dim) -> xr.Da
         return None
     encoded = {name for name, _, _ in _time_encoding(first)}
     fields = [n for n in _numeric_fields([first], paths[:1]) if n not in encoded]
-    if not member_files.same_layout(paths[0], paths[1:], fields):
+    raw = member_files.same_layout(paths[0], paths[1:], fields)
+    if raw is None:
         return None
     # in memory (grid, times, bounds: small), so no xarray file manager of the first file
     # travels to a cluster's workers with the graph
@@ -281,7 +282,7 @@ def _alike_member_files(paths: list[Path], chunks: Mapping, member_dim) -> xr.Da
     for name in list(merged.data_vars):
         merged[name] = merged[name].expand_dims(member=len(paths))
     merged = merged.assign_coords(member=np.arange(len(paths)))
-    merged = member_files.grouped_fields(merged, first, paths, fields, int(chunks["member"]))
+    merged = member_files.grouped_fields(merged, first, paths, raw, int(chunks["member"]))
     merged = merged.chunk({k: v for k, v in chunks.items() if k in merged.dims})
     return _decode_times(merged)
 

@@ -26,10 +26,11 @@ from xarray.backends.netCDF4_ import NETCDF4_PYTHON_LOCK as _NETCDF_LOCK
 __all__ = ["FileStack", "MemberStack", "grouped_fields", "same_layout", "stacked"]
 
 
-def same_layout(first: Path, others: list[Path], fields: list[str]) -> bool:
-    """Whether every file in `others` has the dimensions of `first`, its `fields` with the
-    same dims, shape, type and attributes, and its other variables with the same attributes
-    and values (coordinates, times as encoded, bounds). Raw netCDF values, nothing decoded.
+def same_layout(first: Path, others: list[Path], fields: list[str]) -> dict[str, dict] | None:
+    """The raw netCDF attributes of the `fields` of `first` when every file in `others` has
+    its dimensions, its `fields` with the same dims, shape, type and attributes, and its other
+    variables with the same attributes and values (coordinates, times as encoded, bounds);
+    else None. Raw netCDF values, nothing decoded.
     """
     with _NETCDF_LOCK, netCDF4.Dataset(first) as nc:
         reference = _layout(nc, fields)
@@ -37,10 +38,10 @@ def same_layout(first: Path, others: list[Path], fields: list[str]) -> bool:
         try:
             with _NETCDF_LOCK, netCDF4.Dataset(path) as nc:
                 if not _matches(nc, reference, fields):
-                    return False
+                    return None
         except (OSError, KeyError, ValueError, RuntimeError):
-            return False  # opened one by one with xarray, which says what is wrong
-    return True
+            return None  # opened one by one with xarray, which says what is wrong
+    return {name: reference["vars"][name][3] for name in fields}
 
 
 def _layout(nc: netCDF4.Dataset, fields: list[str]) -> dict:
@@ -89,16 +90,15 @@ def _equal(a, b) -> bool:
 
 
 def grouped_fields(
-    merged: xr.Dataset, first: xr.Dataset, paths: list[Path], fields: list[str], size: int
+    merged: xr.Dataset, first: xr.Dataset, paths: list[Path], raw: dict[str, dict], size: int
 ) -> xr.Dataset:
-    """`merged` with the numeric `fields` of the member files at `paths` added, each read by
-    one dask task per group of `size` files (`FileStack`). `first`: the first file opened
-    lazily by xarray (without dask), whose decoded types and attributes the fields take."""
+    """`merged` with the numeric fields of the member files at `paths` added (`raw`: field
+    name -> its raw netCDF attributes, from `same_layout`), each read by one dask task per
+    group of `size` files (`FileStack`). `first`: the first file opened lazily by xarray
+    (without dask), whose decoded types and attributes the fields take."""
     out = merged.copy()
-    for name in fields:
+    for name, raw_attrs in raw.items():
         ref = first[name]
-        with _NETCDF_LOCK, netCDF4.Dataset(paths[0]) as nc:
-            raw_attrs = _attrs(nc.variables[name])
         stacks = [
             FileStack(paths[i : i + size], name, ref.shape, raw_attrs, ref.dtype)
             for i in range(0, len(paths), size)
@@ -114,7 +114,34 @@ def stacked(stacks: list):
     return da.concatenate([da.from_array(s, chunks=s.shape, asarray=False) for s in stacks], axis=0)
 
 
-class FileStack:
+class _Stack:
+    """Members seen as one (member, ...) array of `shape` and `dtype`: indexing picks the
+    members, and `_member(i, rest)` reads the rest of the key from member i."""
+
+    shape: tuple
+    dtype: np.dtype
+
+    @property
+    def ndim(self) -> int:
+        return len(self.shape)
+
+    def __getitem__(self, key) -> np.ndarray:
+        key = key if isinstance(key, tuple) else (key,)
+        key = key + (slice(None),) * (self.ndim - len(key))
+        first, rest = key[0], key[1:]
+        picked = np.arange(self.shape[0])[first]
+        values = [self._member(int(i), rest) for i in np.atleast_1d(picked)]
+        if values:
+            out = np.stack(values)
+        else:  # the selection's shape, from a view that allocates nothing
+            out = np.empty((0, *np.broadcast_to(0, self.shape[1:])[rest].shape), self.dtype)
+        return out[0] if np.ndim(picked) == 0 else out
+
+    def _member(self, i: int, rest: tuple) -> np.ndarray:
+        raise NotImplementedError
+
+
+class FileStack(_Stack):
     """The variable `name` of several member files seen as one (member, ...) array, read
     from the files when indexed: slices (and single indices) are read as such, so a
     selection reads only its part of each selected file.
@@ -137,23 +164,10 @@ class FileStack:
         self.attrs = attrs
         self.dtype = np.dtype(dtype)
         self.shape = (len(self.paths), *shape)
-        self.ndim = len(self.shape)
 
-    def __getitem__(self, key) -> np.ndarray:
-        key = key if isinstance(key, tuple) else (key,)
-        key = key + (slice(None),) * (self.ndim - len(key))
-        first, rest = key[0], key[1:]
-        picked = np.arange(len(self.paths))[first]
-        values = [self._read(self.paths[i], rest) for i in np.atleast_1d(picked)]
-        if values:
-            stacked = np.stack(values)
-        else:
-            stacked = np.empty((0, *np.empty(self.shape[1:])[rest].shape), self.dtype)
-        return stacked[0] if np.ndim(picked) == 0 else stacked
-
-    def _read(self, path: str, rest: tuple) -> np.ndarray:
+    def _member(self, i: int, rest: tuple) -> np.ndarray:
         read, after = _read_key(rest, self.shape[1:])
-        with self.lock, netCDF4.Dataset(path) as nc:
+        with self.lock, netCDF4.Dataset(self.paths[i]) as nc:
             var = nc.variables[self.name]
             var.set_auto_maskandscale(False)
             raw = np.asarray(var[read] if read is not None else var[...])
@@ -208,7 +222,7 @@ def _read_key(key: tuple, shape: tuple) -> tuple[tuple | None, list]:
     return tuple(read), after
 
 
-class MemberStack:
+class MemberStack(_Stack):
     """Several member files' lazily opened variables (xarray, without dask) seen as one
     (member, ...) array: indexing with slices reads only the selected part of each selected
     file. For member files opened one by one with xarray."""
@@ -217,12 +231,6 @@ class MemberStack:
         self.variables = variables
         self.dtype = np.dtype(dtype)
         self.shape = (len(variables), *variables[0].shape)
-        self.ndim = len(self.shape)
 
-    def __getitem__(self, key) -> np.ndarray:
-        key = key if isinstance(key, tuple) else (key,)
-        first, rest = key[0], key[1:]
-        picked = [self.variables[i] for i in np.arange(len(self.variables))[first].ravel()]
-        values = [np.asarray(v[rest].values, dtype=self.dtype) for v in picked]
-        stacked = np.stack(values) if values else np.empty((0, *self.shape[1:]), self.dtype)
-        return stacked[0] if np.ndim(first) == 0 and not isinstance(first, slice) else stacked
+    def _member(self, i: int, rest: tuple) -> np.ndarray:
+        return np.asarray(self.variables[i][rest].values, dtype=self.dtype)
