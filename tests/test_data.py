@@ -588,6 +588,35 @@ def test_alike_member_files_read_in_groups_equal_xarray_per_file(
         np.testing.assert_array_equal(stack[key], _numpy_outer(full, key), err_msg=str(key))
 
 
+def test_alike_member_files_put_in_order_and_selected_inside_each_read(base, tmp_path, monkeypatch):
+    # Analytic, as test_normalization_invariance: files with latitudes descending, longitudes
+    # 0..360 (a sort), Pa, geopotential and other names hold the same canonical field.
+    import dask
+
+    import westerlies.data as data
+
+    opened = []
+    real = data._open_lazy
+    monkeypatch.setattr(data, "_open_lazy", lambda p, **kw: opened.append(p) or real(p, **kw))
+    source, _ = _everything_at_once(base, tmp_path)
+    got = _open_quiet(source, chunks={"member": 2})
+    assert len(opened) == 1  # the alike-files path
+    want = _open_quiet(base)
+    for name in ("z500", "u"):
+        a = got[name].drop_vars(["member", "source"])
+        xr.testing.assert_allclose(a, want[name].drop_vars("member"), rtol=1e-6)
+    # the grid's reordering and the conversion to float64 are part of each group's read:
+    # the reader and its chunks are the whole graph (no take or astype over whole chunks)
+    assert len(got["u"].data.chunks[0]) == 2
+    assert len(got["u"].data.dask.layers) == 2
+    # and a later selection is made in the same task as the read
+    sector = got["u"].sel(lat=slice(30, 60), lon=slice(-60, 0)).isel(plev=slice(0, 2))
+    (optimized,) = dask.optimize(sector.data)
+    assert len(optimized.dask.layers) == 1
+    expected = want["u"].sel(lat=slice(30, 60), lon=slice(-60, 0)).isel(plev=slice(0, 2))
+    np.testing.assert_allclose(optimized.compute(), expected.values, rtol=1e-6)
+
+
 def _numpy_outer(values: np.ndarray, key: tuple) -> np.ndarray:
     """values[key] with every 1-D integer array taken along its own axis (outer indexing)."""
     out, axis = values, 0

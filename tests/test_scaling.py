@@ -96,3 +96,22 @@ def test_member_groups_and_chunked_large_field_path_give_the_same_numbers(
         lazy = _compare(files, chunks={"member": 2, "time": 50})  # member files read in groups
     _assert_same(in_memory, lazy)
     assert lazy.indices["ctl"]["nao"].sizes["member"] == 5
+
+
+def test_own_cluster_workers_keep_the_adaptive_allocator():
+    # dask sets MALLOC_TRIM_THRESHOLD_ for worker processes, which fixes glibc's mmap threshold
+    # (glibc mallopt(3): setting M_TRIM_THRESHOLD disables the dynamic mmap threshold) and
+    # measured twice the time of a member-group task; our own cluster's workers go without
+    # it and keep dask's one-thread BLAS/OpenMP settings.
+    pytest.importorskip("distributed")
+    import os
+
+    from distributed import get_client
+
+    from westerlies.cli import _cluster
+
+    with _cluster(1, None, None):
+        environ = get_client().run(lambda: dict(os.environ))
+    (worker_environ,) = environ.values()
+    assert "MALLOC_TRIM_THRESHOLD_" not in worker_environ
+    assert worker_environ.get("OMP_NUM_THREADS") == "1"

@@ -11,6 +11,8 @@ Exit status: 0 success, 1 the input is not usable or the job failed on bad input
 from __future__ import annotations
 
 import argparse
+import contextlib
+import os
 import sys
 import tempfile
 from collections.abc import Sequence
@@ -158,6 +160,29 @@ def _worker_settings() -> None:
     warnings.simplefilter("ignore", InputWarning)
 
 
+@contextlib.contextmanager
+def _adaptive_malloc():
+    """Worker processes started inside this block go without dask's MALLOC_TRIM_THRESHOLD_.
+
+    Setting that variable switches off glibc's adaptive mmap threshold, so every array over
+    128 kB is mapped fresh and returned on release: measured on a chunk of 50 member files,
+    6-7x the page faults and about twice the time of the same task in the client. Without it
+    freed arrays are reused, as in a threaded run. dask's nannies also leave the variable in
+    this process's environment for later workers, so it is taken out for the block, then
+    put back as it was.
+    """
+    import dask
+
+    name = "MALLOC_TRIM_THRESHOLD_"
+    before = os.environ.pop(name, None)
+    try:
+        with dask.config.set({f"distributed.nanny.pre-spawn-environ.{name}": None}):
+            yield
+    finally:
+        if before is not None:
+            os.environ[name] = before
+
+
 def _cluster(workers: int | None, scheduler: str | None, say):
     """A dask.distributed client for the run (closed at the end), or nothing."""
     import contextlib
@@ -173,7 +198,8 @@ def _cluster(workers: int | None, scheduler: str | None, say):
         if workers < 1:
             raise ConfigError.make("--workers", str(workers), "at least 1", "pass --workers 2")
         # one thread per worker process: the numerical kernels are already vectorized
-        cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True)
+        with _adaptive_malloc():
+            cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True)
         stack.callback(cluster.close)
         client = Client(cluster)
         client.run(_worker_settings)

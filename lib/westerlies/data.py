@@ -136,8 +136,8 @@ def open_dataset(
     ------
     InputError (or a subclass) naming the file or variable, what was found and the fix.
     """
-    raw, label, files = _read(source, chunks=chunks, member_dim=member_dim)
-    ds = canonicalize(raw, variables=variables, member_dim=member_dim, label=label)
+    raw, label, files, later = _read(source, chunks=chunks, member_dim=member_dim)
+    ds = canonicalize(raw, variables=variables, member_dim=member_dim, label=label, chunks=later)
     if files is not None:
         ds = ds.assign_coords(source=("member", [str(f) for f in files]))
         ds["source"].attrs = {"long_name": "file each member was read from"}
@@ -201,18 +201,19 @@ def _chunked(ds: xr.Dataset, chunks) -> xr.Dataset:
 
 
 def _read(source, *, chunks, member_dim):
-    """Raw dataset, a label for messages, and the member files (None unless one per member)."""
+    """Raw dataset, a label for messages, the member files (None unless one per member), and
+    the chunks still to apply once the grid is in order (None when the data are chunked)."""
     if isinstance(source, xr.Dataset):
-        return (source.chunk(chunks) if chunks is not None else source), "dataset", None
+        return (source.chunk(chunks) if chunks is not None else source), "dataset", None, None
     paths = _paths(source)
     if len(paths) == 1:
-        return _open_one(paths[0], chunks), f"file {str(paths[0])!r}", None
+        return _open_one(paths[0], chunks), f"file {str(paths[0])!r}", None, None
     label = f"{len(paths)} files like {str(paths[0])!r}"
     grouped = isinstance(chunks, Mapping) and "member" in chunks
     if grouped:
-        merged = _alike_member_files(paths, chunks, member_dim)
+        merged = _alike_member_files(paths, member_dim)
         if merged is not None:
-            return merged, label, paths
+            return merged, label, paths, chunks
     # Times stay encoded while the files are opened and concatenated, then are decoded once:
     # decoding every file's times and indexing them is 40% of the cost of opening thousands
     # of member files. Member files whose times are encoded differently are decoded one by one.
@@ -259,14 +260,15 @@ def _read(source, *, chunks, member_dim):
         )
     if len(encodings) == 1:
         merged = _decode_times(merged)
-    return merged, label, paths
+    return merged, label, paths, None
 
 
-def _alike_member_files(paths: list[Path], chunks: Mapping, member_dim) -> xr.Dataset | None:
-    """Member files read in groups without opening every file with xarray (see
+def _alike_member_files(paths: list[Path], member_dim) -> xr.Dataset | None:
+    """Member files read without opening every file with xarray (see
     `westerlies.member_files`), when the files hold no member dimension and all have the
     first file's variables, attributes, grid and times; else None (each file is then opened
-    with xarray, which also says what differs)."""
+    with xarray, which also says what differs). The fields are lazily indexed, not yet
+    chunked: `canonicalize` chunks them once the grid is in order."""
     first = _open_lazy(paths[0], decode_times=False)
     if _find_member_dim(first, member_dim) is not None:
         return None
@@ -282,9 +284,7 @@ def _alike_member_files(paths: list[Path], chunks: Mapping, member_dim) -> xr.Da
     for name in list(merged.data_vars):
         merged[name] = merged[name].expand_dims(member=len(paths))
     merged = merged.assign_coords(member=np.arange(len(paths)))
-    merged = member_files.grouped_fields(merged, first, paths, raw, int(chunks["member"]))
-    merged = merged.chunk({k: v for k, v in chunks.items() if k in merged.dims})
-    return _decode_times(merged)
+    return _decode_times(member_files.lazy_fields(merged, first, paths, raw))
 
 
 def _time_encoding(ds: xr.Dataset) -> frozenset[tuple[str, str, str | None]]:
@@ -340,7 +340,8 @@ def _grouped(
         # one reader per group: a task then carries only its own files' handles
         stacks = [
             member_files.MemberStack(
-                [lazy[name].variable for lazy in lazies[i : i + size]], ref.dtype
+                [lazy[name].variable for lazy in lazies[i : i + size]],
+                member_files.read_dtype(ref.dtype),
             )
             for i in range(0, len(lazies), size)
         ]
@@ -439,8 +440,15 @@ def canonicalize(
     variables: Mapping[str, str] | None = None,
     member_dim: str | None = None,
     label: str = "dataset",
+    chunks: Mapping[str, int] | None = None,
 ) -> xr.Dataset:
-    """Normalize an opened Dataset to the canonical form (see the module docstring)."""
+    """Normalize an opened Dataset to the canonical form (see the module docstring).
+
+    `chunks` (dims by their names in `ds` or canonical names) are applied once the grid is in
+    order: for lazily indexed data, reordering the grid is then part of each chunk's read,
+    and later selections (a sector, a level) reach the reads too, instead of passes over
+    whole chunks.
+    """
     variables = dict(variables or {})
     unknown = set(variables) - set(CANONICAL_VARIABLES)
     if unknown:
@@ -472,6 +480,9 @@ def canonicalize(
     elif "member" not in ds.coords:
         ds = ds.assign_coords(member=np.arange(ds.sizes["member"]))
     ds = _normalize_grid(ds, label)
+    if chunks is not None:
+        wanted = {renames.get(k, k): v for k, v in chunks.items()}
+        ds = ds.chunk({k: v for k, v in wanted.items() if k in ds.dims})
     out = {}
     for name, spec in CANONICAL_VARIABLES.items():
         source_name = variables.get(name) or _find_variable(ds, name, spec, set(out.values()))
@@ -550,7 +561,11 @@ def _normalize_grid(ds: xr.Dataset, label: str) -> xr.Dataset:
         ds = ds.isel(lon=np.sort(first))
     for role in ("lat", "lon"):
         values = ds[role].values
-        if values.size > 1 and not np.all(np.diff(values) > 0):
+        if values.size > 1 and np.all(np.diff(values) < 0):
+            # a reversed view, not a sorting take: dask passes the reversal to the reader and
+            # every chunk stays a view instead of a copy
+            ds = ds.isel({role: slice(None, None, -1)})
+        elif values.size > 1 and not np.all(np.diff(values) > 0):
             ds = ds.sortby(role)
     if "plev" in ds.coords:
         plev_units = str(ds["plev"].attrs.get("units", "hPa"))
@@ -712,10 +727,9 @@ def _convert(da: xr.DataArray, name: str, label: str) -> xr.DataArray:
     original = dict(da.attrs)
     # float64 inside (lazily, chunk by chunk for dask): the same numbers whether the data are in
     # memory or on a cluster, and sums over many days without single-precision round-off
-    da = da.astype("float64", copy=False)
     scale, offset = units.conversion(quantity, text)
-    if (scale, offset) != (1.0, 0.0):
-        da = da * scale + offset
+    if da.dtype != np.float64 or (scale, offset) != (1.0, 0.0):
+        da = da.copy(data=_apply(_to_canonical, da.data, scale, offset))
     da.attrs = {
         "units": units.CANONICAL_UNITS[quantity],
         "standard_name": spec["standard_name"],
@@ -726,6 +740,24 @@ def _convert(da: xr.DataArray, name: str, label: str) -> xr.DataArray:
     }
     da.encoding = {}
     return da.rename(name)
+
+
+def _to_canonical(values: np.ndarray, scale: float, offset: float) -> np.ndarray:
+    """``float64(values) * scale + offset`` in one new array (float32 fields are converted
+    as they are scaled, not in a pass of their own): the same numbers, less memory traffic."""
+    out = np.multiply(values, scale, dtype=np.float64)
+    if offset != 0.0:
+        out += offset
+    return out
+
+
+def _apply(func, data, *args):
+    """`func` on every chunk of dask-backed `data`, or on the array itself."""
+    from dask import is_dask_collection
+
+    if is_dask_collection(data):
+        return data.map_blocks(func, *args, dtype=np.float64)
+    return func(np.asarray(data), *args)
 
 
 def _to_daily(ds: xr.Dataset, daily: str, label: str) -> xr.Dataset:

@@ -128,15 +128,15 @@ def _sector_profile(
                 "pass levels=None for wind already on one level or averaged",
             )
         plev = u["plev"].values
-        keep = np.flatnonzero((plev >= bottom - 1e-6) & (plev <= top + 1e-6))
-        if keep.size == 0:
+        keep = (plev >= bottom - 1e-6) & (plev <= top + 1e-6)
+        if not keep.any():
             raise CoordinateError.make(
                 "jet_index: levels",
                 f"pressure levels {list(map(float, plev))} hPa",
                 f"at least one level between {bottom:g} and {top:g} hPa",
                 "give wind on levels inside the bounds or change 'levels'",
             )
-        u = u.isel(plev=keep)
+        u = u.isel(plev=_indexer(keep))
         used = [float(p) for p in u["plev"].values]
     elif "plev" in u.dims:
         raise CoordinateError.make(

@@ -16,6 +16,7 @@ from pathlib import Path
 import netCDF4
 import numpy as np
 import xarray as xr
+from xarray.backends.common import BackendArray
 
 # xarray's own lock for the netCDF-C and HDF5 libraries, which are not thread-safe: the same
 # lock object keeps these reads from running beside xarray's in other threads. (The same
@@ -23,7 +24,7 @@ import xarray as xr
 # orders deadlock.)
 from xarray.backends.netCDF4_ import NETCDF4_PYTHON_LOCK as _NETCDF_LOCK
 
-__all__ = ["FileStack", "MemberStack", "grouped_fields", "same_layout", "stacked"]
+__all__ = ["FileStack", "MemberStack", "lazy_fields", "read_dtype", "same_layout", "stacked"]
 
 
 def same_layout(first: Path, others: list[Path], fields: list[str]) -> dict[str, dict] | None:
@@ -89,22 +90,49 @@ def _equal(a, b) -> bool:
         return bool(np.array_equal(a, b))
 
 
-def grouped_fields(
-    merged: xr.Dataset, first: xr.Dataset, paths: list[Path], raw: dict[str, dict], size: int
+def lazy_fields(
+    merged: xr.Dataset, first: xr.Dataset, paths: list[Path], raw: dict[str, dict]
 ) -> xr.Dataset:
     """`merged` with the numeric fields of the member files at `paths` added (`raw`: field
-    name -> its raw netCDF attributes, from `same_layout`), each read by one dask task per
-    group of `size` files (`FileStack`). `first`: the first file opened lazily by xarray
+    name -> its raw netCDF attributes, from `same_layout`), lazily indexed (xarray, no dask
+    yet): selections and reorderings (a latitude reversal, a longitude sort) compose into the
+    key each file is later read with, and chunking afterwards makes each chunk one task that
+    reads its own files, already in order. `first`: the first file opened lazily by xarray
     (without dask), whose decoded types and attributes the fields take."""
     out = merged.copy()
     for name, raw_attrs in raw.items():
         ref = first[name]
-        stacks = [
-            FileStack(paths[i : i + size], name, ref.shape, raw_attrs, ref.dtype)
-            for i in range(0, len(paths), size)
-        ]
-        out[name] = xr.Variable(("member", *ref.dims), stacked(stacks), ref.attrs, ref.encoding)
+        files = FileStack(paths, name, ref.shape, raw_attrs, read_dtype(ref.dtype))
+        data = xr.core.indexing.LazilyIndexedArray(_OuterIndexed(files))
+        out[name] = xr.Variable(("member", *ref.dims), data, ref.attrs, ref.encoding)
     return out
+
+
+class _OuterIndexed(BackendArray):
+    """A reader as an xarray backend array: xarray hands it keys of slices, integers and 1-D
+    integer arrays, one per axis (outer indexing), which the reader splits per file."""
+
+    def __init__(self, reader: _Stack) -> None:
+        self.reader = reader
+        self.shape = reader.shape
+        self.dtype = reader.dtype
+
+    def __getitem__(self, key):
+        indexing = xr.core.indexing
+        if isinstance(key, (indexing.BasicIndexer, indexing.OuterIndexer)):
+            # as they are: the reader applies reversals and picks to each file's values, not
+            # to the whole group's array afterwards (as xarray's decomposition of the key would)
+            return self.reader[key.tuple]
+        return indexing.explicit_indexing_adapter(
+            key, self.shape, indexing.IndexingSupport.OUTER, self.reader.__getitem__
+        )
+
+
+def read_dtype(dtype: np.dtype) -> np.dtype:
+    """The type a reader returns a field in: float64 for numbers (the canonical type, see
+    `westerlies.data`), so converting is part of the read and applies to the selected part
+    only (a jet sector, a level), not to whole chunks in a pass of their own."""
+    return np.dtype(np.float64) if np.dtype(dtype).kind in "fiu" else np.dtype(dtype)
 
 
 def stacked(stacks: list):
@@ -130,11 +158,10 @@ class _Stack:
         key = key + (slice(None),) * (self.ndim - len(key))
         first, rest = key[0], key[1:]
         picked = np.arange(self.shape[0])[first]
-        values = [self._member(int(i), rest) for i in np.atleast_1d(picked)]
-        if values:
-            out = np.stack(values)
-        else:  # the selection's shape, from a view that allocates nothing
-            out = np.empty((0, *np.broadcast_to(0, self.shape[1:])[rest].shape), self.dtype)
+        members = np.atleast_1d(picked)
+        out = np.empty((members.size, *_outer_shape(rest, self.shape[1:])), self.dtype)
+        for j, i in enumerate(members):
+            out[j] = self._member(int(i), rest)  # each file's values straight into place
         return out[0] if np.ndim(picked) == 0 else out
 
     def _member(self, i: int, rest: tuple) -> np.ndarray:
@@ -189,6 +216,18 @@ class FileStack(_Stack):
             decode_timedelta=False,
         )
         return np.asarray(decoded.values, dtype=self.dtype)
+
+
+def _outer_shape(key: tuple, shape: tuple) -> tuple:
+    """The shape `key` selects from `shape`, each index applying to its own axis (outer
+    indexing: slices, integers, which drop their axis, and 1-D integer arrays)."""
+    out = []
+    for index, n in zip(key, shape, strict=True):
+        if isinstance(index, slice):
+            out.append(len(range(*index.indices(n))))
+        elif not isinstance(index, (int, np.integer)):
+            out.append(len(index))
+    return tuple(out)
 
 
 def _read_key(key: tuple, shape: tuple) -> tuple[tuple | None, list]:
