@@ -157,7 +157,9 @@ def _draw_figures(comparison, where: Path, formats, dpi: int, progress) -> list:
     from .report_figures import figure_recipes
 
     recipes = list(figure_recipes(comparison))
-    client = _cluster_client()
+    from .diagnostics import cluster_client
+
+    client = cluster_client()
     if client is None:
         for name, _, make in recipes:
             _say(progress, f"figure {name}")
@@ -171,19 +173,6 @@ def _draw_figures(comparison, where: Path, formats, dpi: int, progress) -> list:
             for fmt, data in future.result().items():
                 (where / f"{name}.{fmt}").write_bytes(data)  # the set is published whole
     return [(name, caption, where / f"{name}.png") for name, caption, _ in recipes]
-
-
-def _cluster_client():
-    """The dask.distributed client dask would use now, or None (threads, or no distributed)."""
-    import dask.base
-
-    get = dask.base.get_scheduler()
-    owner = getattr(get, "__self__", None)
-    try:
-        from distributed import Client
-    except ImportError:
-        return None
-    return owner if isinstance(owner, Client) else None
 
 
 def _drawn(make, formats, dpi: int) -> dict[str, bytes]:
