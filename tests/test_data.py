@@ -708,3 +708,36 @@ def test_group_reader_on_a_worker_shares_the_lock_of_xarray_files_sent_along(raw
     ):
         ours, xarrays = client.submit(_lock_ids, stack, store.datastore).result()
     assert ours == xarrays
+
+
+def test_member_file_check_runs_on_a_cluster_with_the_same_verdict(
+    raw_dataset, tmp_path, monkeypatch
+):
+    # On a cluster the workers check the member files in groups; the verdict (the first
+    # file's raw field attributes, or None when a file differs) is the one of the check run
+    # here file by file.
+    distributed = pytest.importorskip("distributed")
+    from westerlies import member_files
+
+    (tmp_path / "alike").mkdir()
+    (tmp_path / "differ").mkdir()
+    alike = _packed_members(raw_dataset, tmp_path / "alike")
+    differ = _packed_members(raw_dataset, tmp_path / "differ", scale_of_second=0.25)
+    fields = ["zg", "ua"]
+    monkeypatch.setattr(member_files, "CHECK_GROUP", 1)  # a group per file
+    here = [member_files.same_layout(p[0], p[1:], fields) for p in (alike, differ)]
+    with (
+        distributed.LocalCluster(
+            n_workers=1, threads_per_worker=1, processes=True, dashboard_address=None
+        ) as cluster,
+        distributed.Client(cluster),
+        distributed.get_task_stream() as stream,
+    ):
+        there = [member_files.same_layout(p[0], p[1:], fields) for p in (alike, differ)]
+    assert sum("_all_match" in str(task["key"]) for task in stream.data) == 2 * 3
+    assert here[1] is None and there[1] is None
+    assert there[0] is not None and there[0].keys() == here[0].keys() == set(fields)
+    for name in fields:
+        assert there[0][name].keys() == here[0][name].keys()
+        for key, value in here[0][name].items():
+            np.testing.assert_array_equal(there[0][name][key], value)

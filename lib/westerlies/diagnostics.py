@@ -16,6 +16,7 @@ from dask import is_dask_collection
 from threadpoolctl import threadpool_limits
 
 from . import resampling
+from ._scheduler import cluster_client
 from .config import resampling_keywords
 from .errors import InputWarning
 from .timeseries import Autocorrelation, acf, ccf_interval
@@ -136,19 +137,6 @@ def run_each(calls: dict[Any, tuple]) -> dict[Any, Any]:
                 results = {key: func(*args) for key, (func, args) in direct.items()}
             results.update(zip(lazy, small.result(), strict=True))
     return {k: results[k] for k in calls}
-
-
-def cluster_client():
-    """The dask.distributed client dask would use now, or None (threads, or no distributed)."""
-    import dask.base
-
-    get = dask.base.get_scheduler()
-    owner = getattr(get, "__self__", None)
-    try:
-        from distributed import Client
-    except ImportError:
-        return None
-    return owner if isinstance(owner, Client) else None
 
 
 # --------------------------------------------------------------------------------- fits

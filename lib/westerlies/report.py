@@ -157,7 +157,7 @@ def _draw_figures(comparison, where: Path, formats, dpi: int, progress) -> list:
     from .report_figures import figure_recipes
 
     recipes = list(figure_recipes(comparison))
-    from .diagnostics import cluster_client
+    from ._scheduler import cluster_client
 
     client = cluster_client()
     if client is None:
