@@ -445,9 +445,9 @@ def canonicalize(
     """Normalize an opened Dataset to the canonical form (see the module docstring).
 
     `chunks` (dims by their names in `ds` or canonical names) are applied once the grid is in
-    order: for lazily indexed data, reordering the grid is then part of each chunk's read,
-    and later selections (a sector, a level) reach the reads too, instead of passes over
-    whole chunks.
+    order: for lazily indexed data, reordering the grid is then part of each chunk's read
+    instead of passes over whole chunks, and later selections (a sector, a level) run in the
+    same task as the read.
     """
     variables = dict(variables or {})
     unknown = set(variables) - set(CANONICAL_VARIABLES)
@@ -562,8 +562,8 @@ def _normalize_grid(ds: xr.Dataset, label: str) -> xr.Dataset:
     for role in ("lat", "lon"):
         values = ds[role].values
         if values.size > 1 and np.all(np.diff(values) < 0):
-            # a reversed view, not a sorting take: dask passes the reversal to the reader and
-            # every chunk stays a view instead of a copy
+            # a reversal, not a sorting take: lazily indexed files get it in the key they are
+            # read with, and dask chunks stay views instead of copies
             ds = ds.isel({role: slice(None, None, -1)})
         elif values.size > 1 and not np.all(np.diff(values) > 0):
             ds = ds.sortby(role)

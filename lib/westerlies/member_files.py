@@ -1,12 +1,16 @@
 """Ensembles stored one member per file, read in groups of files by dask tasks.
 
 `westerlies.data.open_dataset` opens the first member file with xarray and, when every other
-file has the same variables, attributes, grid and times (checked on the raw netCDF values),
-reads nothing more from them while opening: each dask task later opens its group of files,
-reads the selected part of each and decodes it as xarray decodes the first file
-(`xarray.conventions.decode_cf_variable` with that file's attributes). Opening thousands of
-member files with xarray costs about 5 ms each (indexes, decoding) against about 1 ms for
-this check; files that differ in any of these are opened one by one with xarray instead.
+file has the same variables, attributes, grid and times (checked on the raw netCDF values, by
+the workers in groups when a dask.distributed client is active), reads nothing more from them
+while opening. The fields become lazily indexed xarray variables over one reader of all the
+files (`lazy_fields`): putting the grid in order composes into the key each file is read
+with, and they are chunked only then, so each dask task opens its group of files, reads the
+selected part of each, in order, decodes it as xarray decodes the first file
+(`xarray.conventions.decode_cf_variable` with that file's attributes) and converts it to
+float64, with no pass over whole chunks to sort or convert them. Opening thousands of member
+files with xarray costs about 5 ms each (indexes, decoding) against about 1 ms for this check;
+files that differ in any of these are opened one by one with xarray instead.
 """
 
 from __future__ import annotations
@@ -121,9 +125,9 @@ def lazy_fields(
 ) -> xr.Dataset:
     """`merged` with the numeric fields of the member files at `paths` added (`raw`: field
     name -> its raw netCDF attributes, from `same_layout`), lazily indexed (xarray, no dask
-    yet): selections and reorderings (a latitude reversal, a longitude sort) compose into the
-    key each file is later read with, and chunking afterwards makes each chunk one task that
-    reads its own files, already in order. `first`: the first file opened lazily by xarray
+    yet): reorderings made before chunking (a latitude reversal, a longitude sort) compose into
+    the key each file is later read with, and chunking afterwards makes each chunk one task
+    that reads its own files, already in order. `first`: the first file opened lazily by xarray
     (without dask), whose decoded types and attributes the fields take."""
     out = merged.copy()
     for name, raw_attrs in raw.items():
@@ -156,8 +160,8 @@ class _OuterIndexed(BackendArray):
 
 def read_dtype(dtype: np.dtype) -> np.dtype:
     """The type a reader returns a field in: float64 for numbers (the canonical type, see
-    `westerlies.data`), so converting is part of the read and applies to the selected part
-    only (a jet sector, a level), not to whole chunks in a pass of their own."""
+    `westerlies.data`), so converting is part of each file's read, not a pass of its own over
+    whole chunks."""
     return np.dtype(np.float64) if np.dtype(dtype).kind in "fiu" else np.dtype(dtype)
 
 
