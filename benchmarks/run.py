@@ -56,6 +56,7 @@ import os
 import platform
 import shutil
 import signal
+import statistics
 import subprocess
 import sys
 import tempfile
@@ -66,7 +67,6 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-import numpy as np
 import workloads  # the sibling module, found through the path set above
 from plain_way import step_plain  # step (c), the plain way
 
@@ -334,12 +334,13 @@ def ratios(steps: dict) -> dict:
         full = plain["wall_s"] + plain["result"]["extra_for_full_resamples_s"]
         out["plain_wall_full_resamples_s"] = round(full, 1)
         out["plain_over_suite"] = _ratio(full, suite)
-    pairs = []
-    for r in range(1, 1 + sum(name.startswith("suite_workers_1") for name in steps)):
+    pairs, r = [], 1
+    while _suite_key(1, r) in steps:
         pair = _ratio(wall(_suite_key(1, r)), wall(_suite_key(2, r)))
         if pair is not None:
             pairs.append(pair)
-    out["speedup_2_over_1"] = float(np.median(pairs)) if pairs else None
+        r += 1
+    out["speedup_2_over_1"] = statistics.median(pairs) if pairs else None
     out["speedup_2_over_1_each_round"] = pairs
     return out
 

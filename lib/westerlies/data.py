@@ -729,7 +729,13 @@ def _convert(da: xr.DataArray, name: str, label: str) -> xr.DataArray:
     # memory or on a cluster, and sums over many days without single-precision round-off
     scale, offset = units.conversion(quantity, text)
     if da.dtype != np.float64 or (scale, offset) != (1.0, 0.0):
-        da = da.copy(data=_apply(_to_canonical, da.data, scale, offset))
+        da = xr.apply_ufunc(
+            _to_canonical,
+            da,
+            kwargs={"scale": scale, "offset": offset},
+            dask="parallelized",
+            output_dtypes=[np.float64],
+        )
     da.attrs = {
         "units": units.CANONICAL_UNITS[quantity],
         "standard_name": spec["standard_name"],
@@ -749,15 +755,6 @@ def _to_canonical(values: np.ndarray, scale: float, offset: float) -> np.ndarray
     if offset != 0.0:
         out += offset
     return out
-
-
-def _apply(func, data, *args):
-    """`func` on every chunk of dask-backed `data`, or on the array itself."""
-    from dask import is_dask_collection
-
-    if is_dask_collection(data):
-        return data.map_blocks(func, *args, dtype=np.float64)
-    return func(np.asarray(data), *args)
 
 
 def _to_daily(ds: xr.Dataset, daily: str, label: str) -> xr.Dataset:
